@@ -1,0 +1,161 @@
+package drivers
+
+import (
+	"errors"
+	"fmt"
+
+	"github.com/gliss-lab/gliss/drivers/calib"
+)
+
+// Limits are the software limits of one instrument, from the bench file.
+// Only the fields of the instrument's role are meaningful. They are a
+// convenience for the operator, never a safety interlock.
+type Limits struct {
+	StageMinMM, StageMaxMM float64
+	StageSpeedMMPerS       float64
+	StageAccelMMPerS2      float64
+
+	AngleMinDeg, AngleMaxDeg float64
+	RotationSpeedDegPerS     float64
+	// PowerMaxUW is the bench's maximum power on the sample.
+	PowerMaxUW float64
+
+	// CountRateMaxHz is the ceiling per counter channel, counts/s.
+	CountRateMaxHz map[string]float64
+
+	DetuningMinMeV, DetuningMaxMeV float64
+	// DetuningSpeedMeVPerS is the laser's tuning speed, for previews (0: instant).
+	DetuningSpeedMeVPerS float64
+
+	TemperatureMinK, TemperatureMaxK float64
+}
+
+// Entry is one configured instrument of a bench.
+type Entry struct {
+	Name   string
+	Role   Role
+	Driver string
+	Limits Limits
+	// Inst implements the interface of Role (Stage, Attenuator, …).
+	Inst Instrument
+}
+
+// Calibration is the bench's current calibration set.
+type Calibration struct {
+	// Stretcher maps stage mm ↔ GDD ps².
+	Stretcher calib.Stretcher
+	// Attenuator maps angle deg ↔ power µW.
+	Attenuator calib.Malus
+}
+
+// Bench is the configured set of instruments, opened.
+type Bench struct {
+	// Name of the bench ("sim" for the built-in simulated bench).
+	Name        string
+	Entries     []*Entry
+	Calibration Calibration
+	// SimSeed is the seed of a simulated bench (0 for real instruments).
+	SimSeed uint64
+}
+
+// ByRole returns the first instrument of a role, or nil.
+func (b *Bench) ByRole(r Role) *Entry {
+	for _, e := range b.Entries {
+		if e.Role == r {
+			return e
+		}
+	}
+	return nil
+}
+
+// ByName returns the instrument of that name, or nil.
+func (b *Bench) ByName(name string) *Entry {
+	for _, e := range b.Entries {
+		if e.Name == name {
+			return e
+		}
+	}
+	return nil
+}
+
+// Stage returns the bench's stage, or nil.
+func (b *Bench) Stage() Stage { s, _ := roleInst(b, RoleStage).(Stage); return s }
+
+// Attenuator returns the bench's attenuator, or nil.
+func (b *Bench) Attenuator() Attenuator {
+	a, _ := roleInst(b, RoleAttenuator).(Attenuator)
+	return a
+}
+
+// PowerMeter returns the bench's power meter, or nil.
+func (b *Bench) PowerMeter() PowerMeter {
+	p, _ := roleInst(b, RolePowerMeter).(PowerMeter)
+	return p
+}
+
+// Counter returns the bench's counter, or nil.
+func (b *Bench) Counter() Counter { c, _ := roleInst(b, RoleCounter).(Counter); return c }
+
+// Laser returns the bench's laser, or nil.
+func (b *Bench) Laser() Laser { l, _ := roleInst(b, RoleLaser).(Laser); return l }
+
+// Thermometer returns the bench's thermometer, or nil.
+func (b *Bench) Thermometer() Thermometer {
+	t, _ := roleInst(b, RoleThermometer).(Thermometer)
+	return t
+}
+
+func roleInst(b *Bench, r Role) Instrument {
+	if e := b.ByRole(r); e != nil {
+		return e.Inst
+	}
+	return nil
+}
+
+// Validate checks that every entry implements its role's interface and that
+// names are unique.
+func (b *Bench) Validate() error {
+	seen := map[string]bool{}
+	var errs []error
+	for _, e := range b.Entries {
+		if seen[e.Name] {
+			errs = append(errs, fmt.Errorf("instrument %q: name used twice", e.Name))
+		}
+		seen[e.Name] = true
+		ok := false
+		switch e.Role {
+		case RoleStage:
+			_, ok = e.Inst.(Stage)
+		case RoleAttenuator:
+			_, ok = e.Inst.(Attenuator)
+		case RolePowerMeter:
+			_, ok = e.Inst.(PowerMeter)
+		case RoleCounter:
+			_, ok = e.Inst.(Counter)
+		case RoleLaser:
+			_, ok = e.Inst.(Laser)
+		case RoleThermometer:
+			_, ok = e.Inst.(Thermometer)
+		default:
+			errs = append(errs, fmt.Errorf("instrument %q: unknown role %q", e.Name, e.Role))
+			continue
+		}
+		if !ok {
+			errs = append(errs, fmt.Errorf("instrument %q: driver %q does not implement role %q", e.Name, e.Driver, e.Role))
+		}
+	}
+	return errors.Join(errs...)
+}
+
+// Close closes every instrument.
+func (b *Bench) Close() error {
+	var errs []error
+	for _, e := range b.Entries {
+		if e.Inst != nil {
+			if err := e.Inst.Close(); err != nil {
+				errs = append(errs, fmt.Errorf("instrument %q: close: %w", e.Name, err))
+			}
+		}
+	}
+	return errors.Join(errs...)
+}
