@@ -3,6 +3,7 @@ package drivers
 import (
 	"errors"
 	"fmt"
+	"time"
 
 	"github.com/gliss-lab/gliss/drivers/calib"
 )
@@ -56,6 +57,18 @@ type Bench struct {
 	Calibration Calibration
 	// SimSeed is the seed of a simulated bench (0 for real instruments).
 	SimSeed uint64
+	// TimeScale > 1 runs a simulated bench faster than real time (glissd
+	// --sim-speed); the engine divides its own waits (settle) by it. 0 or 1
+	// for real instruments.
+	TimeScale float64
+}
+
+// Scale converts a real-time wait to the bench's time.
+func (b *Bench) Scale(d time.Duration) time.Duration {
+	if b.TimeScale > 1 {
+		return time.Duration(float64(d) / b.TimeScale)
+	}
+	return d
 }
 
 // ByRole returns the first instrument of a role, or nil.
