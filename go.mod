@@ -6,6 +6,7 @@ require (
 	github.com/creack/pty v1.1.24 // indirect
 	go.bug.st/serial v1.8.0 // indirect
 	go.etcd.io/bbolt v1.5.0 // indirect
+	go.yaml.in/yaml/v3 v3.0.6 // indirect
 	golang.org/x/net v0.60.0 // indirect
 	golang.org/x/sys v0.48.0 // indirect
 	golang.org/x/text v0.42.0 // indirect
