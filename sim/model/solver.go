@@ -1,0 +1,407 @@
+package model
+
+import (
+	"errors"
+	"fmt"
+	"math"
+)
+
+// The integrator is an embedded Runge–Kutta 5(4) pair (Dormand & Prince,
+// J. Comput. Appl. Math. 6, 19 (1980)) with first-same-as-last stages and a
+// proportional–integral step-size controller (Hairer, Nørsett & Wanner,
+// Solving Ordinary Differential Equations I, 2nd ed., §II.4), written for
+// this problem:
+//
+//   - It works in the interaction picture of the diagonal part of H: the
+//     diagonal energies E_j + S_j·t integrate in closed form to the phases
+//     φ_j(t), so the right-hand side is proportional to Ω(t) (plus slow decay
+//     terms) and the steps grow long wherever the pulse is weak.
+//   - Without decay it integrates the state vector (6 reals); with decay the
+//     density matrix (9 reals) plus the two emitted-photon integrals γ·∫ρ dt as
+//     extra components, so the yields come with the same error control.
+//   - All state lives in fixed arrays inside Solver: no heap allocation per
+//     step or per solve.
+
+const (
+	nMax = 11
+
+	// DefaultTolerance is the relative and absolute tolerance used when
+	// Params.Tolerance is 0. It gives populations and yields to 1e-6 or better
+	// (TestDefaultToleranceAccuracy).
+	DefaultTolerance = 1e-8
+
+	maxSteps = 5_000_000
+)
+
+// Dormand–Prince 5(4) coefficients.
+const (
+	c2, c3, c4, c5 = 1.0 / 5, 3.0 / 10, 4.0 / 5, 8.0 / 9
+
+	a21 = 1.0 / 5
+	a31 = 3.0 / 40
+	a32 = 9.0 / 40
+	a41 = 44.0 / 45
+	a42 = -56.0 / 15
+	a43 = 32.0 / 9
+	a51 = 19372.0 / 6561
+	a52 = -25360.0 / 2187
+	a53 = 64448.0 / 6561
+	a54 = -212.0 / 729
+	a61 = 9017.0 / 3168
+	a62 = -355.0 / 33
+	a63 = 46732.0 / 5247
+	a64 = 49.0 / 176
+	a65 = -5103.0 / 18656
+	a71 = 35.0 / 384
+	a73 = 500.0 / 1113
+	a74 = 125.0 / 192
+	a75 = -2187.0 / 6784
+	a76 = 11.0 / 84
+
+	// e = b(5th order) − b(4th order)
+	e1 = 71.0 / 57600
+	e3 = -71.0 / 16695
+	e4 = 71.0 / 1920
+	e5 = -17253.0 / 339200
+	e6 = 22.0 / 525
+	e7 = -1.0 / 40
+)
+
+// Step controller constants (Hairer's DOPRI5 defaults).
+const (
+	ctlSafe  = 0.9
+	ctlBeta  = 0.04
+	ctlExpo1 = 0.2 - ctlBeta*0.75
+	ctlFacc1 = 1 / 0.2 // largest shrink 5×
+	ctlFacc2 = 1 / 10.0
+)
+
+// ErrTooManySteps is returned when the solver needs more than its step budget.
+var ErrTooManySteps = errors.New("solver: too many steps")
+
+// Solver integrates Ladder problems. It is reusable and not safe for
+// concurrent use; give each goroutine its own.
+type Solver struct {
+	n       int
+	density bool
+
+	// problem constants
+	env            Envelope
+	pulse          Pulse
+	e1, s1, e21    float64 // E1, S1, E2−E1 (rad/ps, rad/ps²)
+	s21            float64 // S2−S1
+	k01h, k12h     float64 // k/2
+	g1, g2         float64 // γ1, γ2
+	d01, d12, d02  float64 // coherence decay rates
+	kbuf           [7][nMax]float64
+	y, ynew, ytmp  [nMax]float64
+	steps, rejects int
+}
+
+// NewSolver returns a solver ready for use.
+func NewSolver() *Solver { return &Solver{} }
+
+// Solve integrates one point of the dot model. See Params.
+func (s *Solver) Solve(p Params) (Result, error) {
+	if err := p.Validate(); err != nil {
+		return Result{}, err
+	}
+	s.pulse = p.Pulse()
+	l := p.ladderWith(s.pulse, &s.pulse)
+	r, err := s.SolveLadder(&l, p.tolerance())
+	if err != nil {
+		return Result{}, fmt.Errorf("model: %+v: %w", p, err)
+	}
+	return resultOf(&r), nil
+}
+
+// Solve is NewSolver().Solve(p).
+func Solve(p Params) (Result, error) { return NewSolver().Solve(p) }
+
+func resultOf(r *LadderResult) Result {
+	g, x, xx := real(r.Rho[0][0]), real(r.Rho[1][1]), real(r.Rho[2][2])
+	return Result{
+		G: g, X: x, XX: xx,
+		NXX: xx + r.Decayed[1],
+		NX:  x + xx + r.Decayed[0],
+	}
+}
+
+// SolveLadder integrates l from StartPS to EndPS with relative and absolute
+// tolerance tol (0: DefaultTolerance).
+func (s *Solver) SolveLadder(l *Ladder, tol float64) (LadderResult, error) {
+	if err := l.check(); err != nil {
+		return LadderResult{}, err
+	}
+	if tol == 0 {
+		tol = DefaultTolerance
+	}
+	if !(tol > 0 && tol < 1) {
+		return LadderResult{}, fmt.Errorf("solver: tolerance %g, want 0 < tol < 1", tol)
+	}
+	s.setup(l)
+	if err := s.integrate(l.StartPS, l.EndPS, l.MaxStepPS, tol); err != nil {
+		return LadderResult{}, err
+	}
+	var r LadderResult
+	s.finish(l.EndPS, &r)
+	r.Steps, r.Rejected = s.steps, s.rejects
+	return r, nil
+}
+
+func (s *Solver) setup(l *Ladder) {
+	s.env = l.Envelope
+	s.e1, s.s1 = l.EnergyRadPS[1], l.SweepRadPS2[1]
+	s.e21, s.s21 = l.EnergyRadPS[2]-l.EnergyRadPS[1], l.SweepRadPS2[2]-l.SweepRadPS2[1]
+	s.k01h, s.k12h = 0.5*l.Coupling[0], 0.5*l.Coupling[1]
+	s.g1, s.g2 = l.DecayPerPS[0], l.DecayPerPS[1]
+	s.d01, s.d12, s.d02 = 0.5*s.g1, 0.5*(s.g1+s.g2), 0.5*s.g2
+	s.density = s.g1 != 0 || s.g2 != 0
+	s.steps, s.rejects = 0, 0
+
+	psi := l.Initial
+	if psi == [3]complex128{} {
+		psi[0] = 1
+	}
+	// interaction picture: ψ̃_j = ψ_j·e^{iφ_j(t0)}
+	t0 := l.StartPS
+	u1, v := s.phases(t0)
+	u2 := u1 * v
+	pt := [3]complex128{psi[0], psi[1] * u1, psi[2] * u2}
+	s.y = [nMax]float64{}
+	if !s.density {
+		s.n = 6
+		for j := range 3 {
+			s.y[2*j], s.y[2*j+1] = real(pt[j]), imag(pt[j])
+		}
+		return
+	}
+	s.n = 11
+	// ρ̃_jk = ψ̃_j ψ̃_k*
+	s.y[0] = real(pt[0] * cmplxConj(pt[0]))
+	s.y[1] = real(pt[1] * cmplxConj(pt[1]))
+	s.y[2] = real(pt[2] * cmplxConj(pt[2]))
+	c01 := pt[0] * cmplxConj(pt[1])
+	c12 := pt[1] * cmplxConj(pt[2])
+	c02 := pt[0] * cmplxConj(pt[2])
+	s.y[3], s.y[4] = real(c01), imag(c01)
+	s.y[5], s.y[6] = real(c12), imag(c12)
+	s.y[7], s.y[8] = real(c02), imag(c02)
+}
+
+func cmplxConj(z complex128) complex128 { return complex(real(z), -imag(z)) }
+
+// phases returns u1 = e^{iφ1(t)} and v = e^{i(φ2(t)−φ1(t))}.
+func (s *Solver) phases(t float64) (u1, v complex128) {
+	sn, cs := math.Sincos(s.e1*t + 0.5*s.s1*t*t)
+	sn2, cs2 := math.Sincos(s.e21*t + 0.5*s.s21*t*t)
+	return complex(cs, sn), complex(cs2, sn2)
+}
+
+// finish converts the interaction-picture state at t back to the frame of H.
+func (s *Solver) finish(t float64, r *LadderResult) {
+	u1, v := s.phases(t)
+	u2 := u1 * v
+	if !s.density {
+		psi := [3]complex128{
+			complex(s.y[0], s.y[1]),
+			complex(s.y[2], s.y[3]) * cmplxConj(u1),
+			complex(s.y[4], s.y[5]) * cmplxConj(u2),
+		}
+		for j := range 3 {
+			for k := range 3 {
+				r.Rho[j][k] = psi[j] * cmplxConj(psi[k])
+			}
+		}
+		return
+	}
+	// c_jk = c̃_jk·e^{−i(φ_j−φ_k)}: c01 = c̃01·u1, c12 = c̃12·v, c02 = c̃02·u2
+	c01 := complex(s.y[3], s.y[4]) * u1
+	c12 := complex(s.y[5], s.y[6]) * v
+	c02 := complex(s.y[7], s.y[8]) * u2
+	r.Rho = [3][3]complex128{
+		{complex(s.y[0], 0), c01, c02},
+		{cmplxConj(c01), complex(s.y[1], 0), c12},
+		{cmplxConj(c02), cmplxConj(c12), complex(s.y[2], 0)},
+	}
+	r.Decayed = [2]float64{s.y[9], s.y[10]}
+}
+
+// rhs evaluates dy/dt at t.
+func (s *Solver) rhs(t float64, y, dy *[nMax]float64) {
+	om := s.env.RabiAt(t)
+	w0, w1 := s.k01h*om, s.k12h*om
+	sn, cs := math.Sincos(s.e1*t + 0.5*s.s1*t*t)
+	sv, cv := math.Sincos(s.e21*t + 0.5*s.s21*t*t)
+	if !s.density {
+		// dψ̃0 = i·w0·ψ̃1·ū1
+		// dψ̃1 = i·(w0·ψ̃0·u1 + w1·ψ̃2·v̄)
+		// dψ̃2 = i·w1·ψ̃1·v
+		ar, ai := y[0], y[1]
+		br, bi := y[2], y[3]
+		cr, ci := y[4], y[5]
+		// ψ̃1·ū1
+		xr, xi := br*cs+bi*sn, bi*cs-br*sn
+		dy[0], dy[1] = -w0*xi, w0*xr
+		// w0·ψ̃0·u1 + w1·ψ̃2·v̄
+		zr := w0*(ar*cs-ai*sn) + w1*(cr*cv+ci*sv)
+		zi := w0*(ai*cs+ar*sn) + w1*(ci*cv-cr*sv)
+		dy[2], dy[3] = -zi, zr
+		// ψ̃1·v
+		qr, qi := br*cv-bi*sv, bi*cv+br*sv
+		dy[4], dy[5] = -w1*qi, w1*qr
+		return
+	}
+	p0, p1, p2 := y[0], y[1], y[2]
+	ar, ai := y[3], y[4] // c̃01
+	br, bi := y[5], y[6] // c̃12
+	cr, ci := y[7], y[8] // c̃02
+	// Im(c̃01·u1), Im(c̃12·v)
+	im01 := ai*cs + ar*sn
+	im12 := bi*cv + br*sv
+	dy[0] = 2*w0*im01 + s.g1*p1
+	dy[1] = -2*w0*im01 + 2*w1*im12 - s.g1*p1 + s.g2*p2
+	dy[2] = -2*w1*im12 - s.g2*p2
+	// dc̃01 = −i[w0(p0−p1)ū1 + w1·c̃02·v] − Γ01·c̃01
+	d := w0 * (p0 - p1)
+	zr := d*cs + w1*(cr*cv-ci*sv)
+	zi := -d*sn + w1*(ci*cv+cr*sv)
+	dy[3] = zi - s.d01*ar
+	dy[4] = -zr - s.d01*ai
+	// dc̃12 = −i[w1(p1−p2)v̄ − w0·c̃02·u1] − Γ12·c̃12
+	d = w1 * (p1 - p2)
+	zr = d*cv - w0*(cr*cs-ci*sn)
+	zi = -d*sv - w0*(ci*cs+cr*sn)
+	dy[5] = zi - s.d12*br
+	dy[6] = -zr - s.d12*bi
+	// dc̃02 = −i[w1·c̃01·v̄ − w0·c̃12·ū1] − Γ02·c̃02
+	zr = w1*(ar*cv+ai*sv) - w0*(br*cs+bi*sn)
+	zi = w1*(ai*cv-ar*sv) - w0*(bi*cs-br*sn)
+	dy[7] = zi - s.d02*cr
+	dy[8] = -zr - s.d02*ci
+	// emitted photons
+	dy[9] = s.g1 * p1
+	dy[10] = s.g2 * p2
+}
+
+func (s *Solver) errNorm(y, dy *[nMax]float64, tol float64) float64 {
+	var sum float64
+	for i := 0; i < s.n; i++ {
+		q := dy[i] / (tol + tol*math.Abs(y[i]))
+		sum += q * q
+	}
+	return math.Sqrt(sum / float64(s.n))
+}
+
+// initialStep is Hairer's starting-step heuristic (HNW I, §II.4).
+func (s *Solver) initialStep(t float64, f0 *[nMax]float64, hmax, tol float64) float64 {
+	d0 := s.errNorm(&s.y, &s.y, tol)
+	d1 := s.errNorm(&s.y, f0, tol)
+	h0 := 1e-6
+	if d0 >= 1e-10 && d1 >= 1e-10 {
+		h0 = 0.01 * d0 / d1
+	}
+	h0 = min(h0, hmax)
+	for i := 0; i < s.n; i++ {
+		s.ytmp[i] = s.y[i] + h0*f0[i]
+	}
+	f1 := &s.kbuf[1]
+	s.rhs(t+h0, &s.ytmp, f1)
+	for i := 0; i < s.n; i++ {
+		s.ynew[i] = f1[i] - f0[i]
+	}
+	d2 := s.errNorm(&s.y, &s.ynew, tol) / h0
+	var h1 float64
+	if m := max(d1, d2); m <= 1e-15 {
+		h1 = max(1e-6, h0*1e-3)
+	} else {
+		h1 = math.Pow(0.01/m, 0.2)
+	}
+	return min(100*h0, h1, hmax)
+}
+
+func (s *Solver) integrate(t0, t1, hmax, tol float64) error {
+	if hmax <= 0 || hmax > t1-t0 {
+		hmax = t1 - t0
+	}
+	n := s.n
+	k1, k2, k3, k4, k5, k6, k7 := &s.kbuf[0], &s.kbuf[1], &s.kbuf[2], &s.kbuf[3], &s.kbuf[4], &s.kbuf[5], &s.kbuf[6]
+	y, yn, yt := &s.y, &s.ynew, &s.ytmp
+	t := t0
+	s.rhs(t, y, k1)
+	h := s.initialStep(t, k1, hmax, tol)
+	errOld := 1e-4
+	rejected := false
+	for {
+		if s.steps+s.rejects > maxSteps {
+			return fmt.Errorf("%w: %d steps reached at t = %g ps of [%g, %g]", ErrTooManySteps, maxSteps, t, t0, t1)
+		}
+		last := false
+		if t+1.01*h >= t1 {
+			h = t1 - t
+			last = true
+		}
+		for i := 0; i < n; i++ {
+			yt[i] = y[i] + h*a21*k1[i]
+		}
+		s.rhs(t+c2*h, yt, k2)
+		for i := 0; i < n; i++ {
+			yt[i] = y[i] + h*(a31*k1[i]+a32*k2[i])
+		}
+		s.rhs(t+c3*h, yt, k3)
+		for i := 0; i < n; i++ {
+			yt[i] = y[i] + h*(a41*k1[i]+a42*k2[i]+a43*k3[i])
+		}
+		s.rhs(t+c4*h, yt, k4)
+		for i := 0; i < n; i++ {
+			yt[i] = y[i] + h*(a51*k1[i]+a52*k2[i]+a53*k3[i]+a54*k4[i])
+		}
+		s.rhs(t+c5*h, yt, k5)
+		for i := 0; i < n; i++ {
+			yt[i] = y[i] + h*(a61*k1[i]+a62*k2[i]+a63*k3[i]+a64*k4[i]+a65*k5[i])
+		}
+		tn := t + h
+		if last {
+			tn = t1
+		}
+		s.rhs(tn, yt, k6)
+		for i := 0; i < n; i++ {
+			yn[i] = y[i] + h*(a71*k1[i]+a73*k3[i]+a74*k4[i]+a75*k5[i]+a76*k6[i])
+		}
+		s.rhs(tn, yn, k7)
+		var sum float64
+		for i := 0; i < n; i++ {
+			e := h * (e1*k1[i] + e3*k3[i] + e4*k4[i] + e5*k5[i] + e6*k6[i] + e7*k7[i])
+			q := e / (tol + tol*max(math.Abs(y[i]), math.Abs(yn[i])))
+			sum += q * q
+		}
+		errv := math.Sqrt(sum / float64(n))
+		fac11 := math.Pow(errv, ctlExpo1)
+		if errv <= 1 {
+			// accept; PI control of the next step
+			fac := fac11 / math.Pow(errOld, ctlBeta)
+			fac = max(ctlFacc2, min(ctlFacc1, fac/ctlSafe))
+			hnew := h / fac
+			errOld = max(errv, 1e-4)
+			s.steps++
+			t = tn
+			*y = *yn
+			k1, k7 = k7, k1
+			if last {
+				return nil
+			}
+			if rejected {
+				hnew = min(hnew, h)
+			}
+			rejected = false
+			h = min(hnew, hmax)
+		} else {
+			s.rejects++
+			rejected = true
+			h /= min(ctlFacc1, fac11/ctlSafe)
+			if t+h == t {
+				return fmt.Errorf("solver: step size underflow at t = %g ps", t)
+			}
+		}
+	}
+}
