@@ -1,0 +1,165 @@
+package bench
+
+import (
+	"container/list"
+	"context"
+	"fmt"
+	"math"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"github.com/gliss-lab/gliss/drivers"
+	"github.com/gliss-lab/gliss/sim/model"
+)
+
+// maxGate is the longest gate the simulated counter accepts (invented).
+const maxGate = time.Hour
+
+// Counter is the simulated two-channel photon counter behind the X and XX
+// spectral filters. It implements drivers.Counter and drivers.Identifier.
+//
+// One gate: the optical state is read at the gate's start (if the stage,
+// plate or laser is moving, the position at that instant is used for the
+// whole gate); the laser's power noise for the gate is drawn from the
+// counter's own stream (one relative deviate of σ PowerNoiseRel, held for the
+// gate); the dot model is solved once at GDD = true stretcher(stage mm),
+// Θ = π·sqrt(P/P1) with P = true Malus(angle) × laser noise, and the laser's
+// detuning; the detection chain turns the yields into Poisson counts for the
+// gate. The gate takes gate/Speed of wall time (none when Instant); the
+// computation happens inside that time.
+type Counter struct {
+	*base
+	busy atomic.Bool
+
+	solveMu sync.Mutex
+	solver  *model.Solver
+}
+
+func newCounter(b *base) *Counter { return &Counter{base: b, solver: model.NewSolver()} }
+
+// Channels are "x" (exciton line) and "xx" (biexciton line), the order of Count.
+func (c *Counter) Channels() []string { return []string{"x", "xx"} }
+
+// Count opens the gate for gate and returns the counts of x and xx.
+func (c *Counter) Count(ctx context.Context, gate time.Duration) ([]uint64, error) {
+	op := fmt.Sprintf("count for %v", gate)
+	if err := c.begin(ctx, op); err != nil {
+		return nil, err
+	}
+	if gate <= 0 || gate > maxGate {
+		return nil, fmt.Errorf("%s %q: %s: gate_ms %g outside (0, %g] ms: %w", c.kind, c.name, op,
+			float64(gate)/float64(time.Millisecond), float64(maxGate/time.Millisecond), drivers.ErrLimit)
+	}
+	if !c.busy.CompareAndSwap(false, true) {
+		return nil, fmt.Errorf("%s %q: %s: busy, a gate is open", c.kind, c.name, op)
+	}
+	defer c.busy.Store(false)
+	if _, err := c.fault(ctx, op, false); err != nil {
+		return nil, err
+	}
+	st := c.st
+	start := st.now()
+	sn := st.snap()
+	t := st.truth
+
+	c.rngMu.Lock()
+	defer c.rngMu.Unlock()
+	noise := 1.0
+	if t.powerNoiseRel > 0 {
+		noise = math.Max(0, 1+t.powerNoiseRel*c.rng.NormFloat64())
+	}
+	p, err := t.pointAt(sn, noise)
+	if err != nil {
+		return nil, fmt.Errorf("%s %q: %s: %w", c.kind, c.name, op, err)
+	}
+	y, err := c.yields(p)
+	if err != nil {
+		return nil, fmt.Errorf("%s %q: %s: %w", c.kind, c.name, op, err)
+	}
+	counts := t.chain.Counts(c.rng, y[:], gate, make([]uint64, 0, 2))
+	if err := st.sleepUntil(ctx, start.Add(st.wall(gate.Seconds()))); err != nil {
+		return nil, fmt.Errorf("%s %q: %s: %w", c.kind, c.name, op, err)
+	}
+	return counts, nil
+}
+
+// pointAt is the dot model's point for an optical state, with the laser
+// power multiplied by noise.
+func (t truth) pointAt(sn snapshot, noise float64) (model.Params, error) {
+	gdd, err := t.stretcher.GDDPS2(sn.stageMM)
+	if err != nil {
+		return model.Params{}, fmt.Errorf("true stretcher at %.3f mm: %w", sn.stageMM, err)
+	}
+	p := t.dot
+	p.GDDPS2 = gdd
+	p.AreaPi = t.areaPi(t.powerUW(sn.angleDeg) * noise)
+	p.DetuningMeV = sn.detuningMeV
+	return p, nil
+}
+
+// yields are the model's photon yields per pulse (n_x, n_xx) at p, from the
+// bench's cache or one solve.
+func (c *Counter) yields(p model.Params) ([2]float64, error) {
+	if y, ok := c.st.yields.get(p); ok {
+		return y, nil
+	}
+	c.solveMu.Lock()
+	r, err := c.solver.Solve(p)
+	c.solveMu.Unlock()
+	if err != nil {
+		return [2]float64{}, fmt.Errorf("dot model at GDD %.4f ps², area %.4fπ, detuning %.4f meV: %w", p.GDDPS2, p.AreaPi, p.DetuningMeV, err)
+	}
+	y := [2]float64{r.NX, r.NXX}
+	c.st.yields.put(p, y)
+	return y, nil
+}
+
+// yieldCache is a small least-recently-used map from exact model parameters
+// to yields. Entries are exact solutions, so hits and misses give the same
+// numbers: the cache changes speed, never results.
+type yieldCache struct {
+	mu    sync.Mutex
+	cap   int
+	order *list.List // front: most recent; values *yieldEntry
+	byKey map[model.Params]*list.Element
+	hits  atomic.Uint64
+	miss  atomic.Uint64
+}
+
+type yieldEntry struct {
+	key model.Params
+	y   [2]float64
+}
+
+func newYieldCache(capacity int) *yieldCache {
+	return &yieldCache{cap: capacity, order: list.New(), byKey: make(map[model.Params]*list.Element, capacity)}
+}
+
+func (yc *yieldCache) get(p model.Params) ([2]float64, bool) {
+	yc.mu.Lock()
+	defer yc.mu.Unlock()
+	if e, ok := yc.byKey[p]; ok {
+		yc.order.MoveToFront(e)
+		yc.hits.Add(1)
+		return e.Value.(*yieldEntry).y, true
+	}
+	yc.miss.Add(1)
+	return [2]float64{}, false
+}
+
+func (yc *yieldCache) put(p model.Params, y [2]float64) {
+	yc.mu.Lock()
+	defer yc.mu.Unlock()
+	if e, ok := yc.byKey[p]; ok {
+		e.Value.(*yieldEntry).y = y
+		yc.order.MoveToFront(e)
+		return
+	}
+	yc.byKey[p] = yc.order.PushFront(&yieldEntry{key: p, y: y})
+	for yc.order.Len() > yc.cap {
+		last := yc.order.Back()
+		yc.order.Remove(last)
+		delete(yc.byKey, last.Value.(*yieldEntry).key)
+	}
+}
