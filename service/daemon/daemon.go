@@ -1,0 +1,212 @@
+// Package daemon assembles glissd: the store, the bench (simulated or from
+// a bench file), the scan engine and the gRPC server with health and
+// reflection. cmd/glissd and `gliss demo` (an embedded daemon) both use it.
+package daemon
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"net"
+	"os"
+	"path/filepath"
+	"sync"
+	"time"
+
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/health"
+	healthpb "google.golang.org/grpc/health/grpc_health_v1"
+	"google.golang.org/grpc/keepalive"
+	"google.golang.org/grpc/reflection"
+
+	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
+	"github.com/gliss-lab/gliss/drivers"
+	simbench "github.com/gliss-lab/gliss/sim/bench"
+	"github.com/gliss-lab/gliss/service/engine"
+	"github.com/gliss-lab/gliss/service/rpc"
+	"github.com/gliss-lab/gliss/service/store"
+)
+
+// DefaultListen is the daemon's default address: loopback only.
+const DefaultListen = "127.0.0.1:7355"
+
+// Config is what glissd is started with.
+type Config struct {
+	// Listen is host:port; loopback unless TLS and tokens are configured.
+	Listen string
+	// DataDir holds the store (gliss.db).
+	DataDir string
+	// BenchFile describes the instruments; empty means the built-in simulated bench.
+	BenchFile string
+	// OpenBench, when set, opens the bench from BenchFile (the bench-file
+	// loader registers itself here, keeping this package free of it).
+	OpenBench func(ctx context.Context, path string) (*drivers.Bench, error)
+	// SimSeed seeds the simulated bench's noise (same seed, same scan).
+	SimSeed uint64
+	// SimSpeed > 1 runs the simulated bench faster than real time.
+	SimSpeed float64
+	// SimInstant makes the simulated instruments take no time at all.
+	SimInstant bool
+	// AutoResume queues INTERRUPTED scans again at start.
+	AutoResume bool
+	Logger     *slog.Logger
+}
+
+// Daemon is a running glissd.
+type Daemon struct {
+	Engine *engine.Engine
+	Store  *store.Store
+	Bench  *drivers.Bench
+
+	log    *slog.Logger
+	srv    *grpc.Server
+	health *health.Server
+	lis    net.Listener
+
+	cancel  context.CancelFunc
+	engDone chan error
+	srvDone chan error
+	stop    sync.Once
+	stopErr error
+}
+
+// IsLoopback reports whether host:port listens on loopback only.
+func IsLoopback(addr string) bool {
+	host, _, err := net.SplitHostPort(addr)
+	if err != nil {
+		return false
+	}
+	if host == "localhost" {
+		return true
+	}
+	ip := net.ParseIP(host)
+	return ip != nil && ip.IsLoopback()
+}
+
+// Start opens everything and serves until Stop.
+func Start(ctx context.Context, cfg Config) (*Daemon, error) {
+	log := cfg.Logger
+	if log == nil {
+		log = slog.Default()
+	}
+	if cfg.Listen == "" {
+		cfg.Listen = DefaultListen
+	}
+	if !IsLoopback(cfg.Listen) {
+		return nil, fmt.Errorf("--listen %s is not a loopback address: listening beyond this machine needs TLS and bearer tokens, which this glissd is not configured with", cfg.Listen)
+	}
+	if cfg.DataDir == "" {
+		return nil, errors.New("--data: give a directory for the scan store")
+	}
+	if err := os.MkdirAll(cfg.DataDir, 0o755); err != nil {
+		return nil, fmt.Errorf("--data %s: %w", cfg.DataDir, err)
+	}
+	st, err := store.Open(filepath.Join(cfg.DataDir, "gliss.db"), store.Options{})
+	if err != nil {
+		return nil, err
+	}
+	b, err := openBench(ctx, cfg, log)
+	if err != nil {
+		st.Close()
+		return nil, err
+	}
+	eng := engine.New(b, st, engine.Options{Logger: log})
+	if err := eng.Recover(ctx, cfg.AutoResume); err != nil {
+		b.Close()
+		st.Close()
+		return nil, err
+	}
+	lis, err := net.Listen("tcp", cfg.Listen)
+	if err != nil {
+		b.Close()
+		st.Close()
+		return nil, fmt.Errorf("--listen %s: %w", cfg.Listen, err)
+	}
+	srv := grpc.NewServer(
+		// Overnight watches cross lab networks: keep idle links alive.
+		grpc.KeepaliveParams(keepalive.ServerParameters{Time: 30 * time.Second, Timeout: 10 * time.Second}),
+		grpc.KeepaliveEnforcementPolicy(keepalive.EnforcementPolicy{MinTime: 10 * time.Second, PermitWithoutStream: true}),
+	)
+	glissv1.RegisterScanServiceServer(srv, &rpc.Scans{Engine: eng})
+	glissv1.RegisterBenchServiceServer(srv, &rpc.Bench{Engine: eng})
+	hs := health.NewServer()
+	healthpb.RegisterHealthServer(srv, hs)
+	hs.SetServingStatus("", healthpb.HealthCheckResponse_SERVING)
+	hs.SetServingStatus(glissv1.ScanService_ServiceDesc.ServiceName, healthpb.HealthCheckResponse_SERVING)
+	hs.SetServingStatus(glissv1.BenchService_ServiceDesc.ServiceName, healthpb.HealthCheckResponse_SERVING)
+	reflection.Register(srv)
+
+	ectx, cancel := context.WithCancel(context.WithoutCancel(ctx))
+	d := &Daemon{Engine: eng, Store: st, Bench: b, log: log, srv: srv, health: hs, lis: lis,
+		cancel: cancel, engDone: make(chan error, 1), srvDone: make(chan error, 1)}
+	go func() { d.engDone <- eng.Run(ectx) }()
+	go func() { d.srvDone <- srv.Serve(lis) }()
+	log.Info("glissd serving", "listen", lis.Addr().String(), "data", cfg.DataDir, "bench", b.Name, "instruments", len(b.Entries))
+	return d, nil
+}
+
+func openBench(ctx context.Context, cfg Config, log *slog.Logger) (*drivers.Bench, error) {
+	if cfg.BenchFile != "" {
+		if cfg.OpenBench == nil {
+			return nil, fmt.Errorf("--bench %s: this build cannot load bench files", cfg.BenchFile)
+		}
+		b, err := cfg.OpenBench(ctx, cfg.BenchFile)
+		if err != nil {
+			return nil, fmt.Errorf("--bench %s: %w", cfg.BenchFile, err)
+		}
+		return b, nil
+	}
+	b, err := simbench.New(simbench.Options{Seed: cfg.SimSeed, Speed: cfg.SimSpeed, Instant: cfg.SimInstant, Logger: log})
+	if err != nil {
+		return nil, fmt.Errorf("simulated bench: %w", err)
+	}
+	if cfg.SimSpeed > 1 {
+		b.TimeScale = cfg.SimSpeed
+	}
+	if cfg.SimInstant {
+		b.TimeScale = 1e12
+	}
+	return b, nil
+}
+
+// Addr is the address the daemon listens on.
+func (d *Daemon) Addr() string { return d.lis.Addr().String() }
+
+// Stop shuts down gracefully: the health service reports NOT_SERVING, the
+// current point is finished and stored, a running scan becomes INTERRUPTED,
+// open streams are ended, and the store and instruments are closed.
+func (d *Daemon) Stop(ctx context.Context) error {
+	d.stop.Do(func() {
+		d.health.Shutdown()
+		d.cancel()
+		var errs []error
+		select {
+		case err := <-d.engDone:
+			if err != nil && !errors.Is(err, context.Canceled) {
+				errs = append(errs, fmt.Errorf("engine: %w", err))
+			}
+		case <-ctx.Done():
+			errs = append(errs, fmt.Errorf("engine did not stop in time: %w", ctx.Err()))
+		}
+		stopped := make(chan struct{})
+		go func() { d.srv.GracefulStop(); close(stopped) }()
+		select {
+		case <-stopped:
+		case <-time.After(2 * time.Second):
+			d.srv.Stop() // watch streams never end by themselves
+		}
+		if err := d.Store.Close(); err != nil {
+			errs = append(errs, err)
+		}
+		if err := d.Bench.Close(); err != nil {
+			errs = append(errs, err)
+		}
+		d.stopErr = errors.Join(errs...)
+		d.log.Info("glissd stopped")
+	})
+	return d.stopErr
+}
+
+// Wait blocks until the gRPC server stops serving (after Stop, or on a listener error).
+func (d *Daemon) Wait() error { return <-d.srvDone }

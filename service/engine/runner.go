@@ -1,0 +1,507 @@
+package engine
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"time"
+
+	"golang.org/x/sync/errgroup"
+	"google.golang.org/protobuf/proto"
+	"google.golang.org/protobuf/types/known/timestamppb"
+
+	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
+	"github.com/gliss-lab/gliss/drivers"
+	"github.com/gliss-lab/gliss/service/plan"
+)
+
+// Run executes queued scans one at a time until ctx is cancelled. On
+// cancellation the current point is finished and stored, the scan becomes
+// INTERRUPTED ("glissd shut down") so that it can be resumed, and Run
+// returns once the store has everything.
+func (e *Engine) Run(ctx context.Context) error {
+	for {
+		r := e.next()
+		if r == nil {
+			select {
+			case <-ctx.Done():
+				return e.store.Sync(context.WithoutCancel(ctx))
+			case <-e.wake:
+				continue
+			}
+		}
+		e.runScan(ctx, r)
+		if ctx.Err() != nil {
+			return e.store.Sync(context.WithoutCancel(ctx))
+		}
+	}
+}
+
+// next takes the first runnable queued scan and gives it the bench.
+func (e *Engine) next() *run {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	if e.holder != "" {
+		return nil
+	}
+	for _, r := range e.queue {
+		r.mu.Lock()
+		st := r.rec.State
+		r.mu.Unlock()
+		if st == glissv1.ScanState_SCAN_STATE_QUEUED {
+			e.holder = r.rec.Id
+			for i, q := range e.queue {
+				if q == r {
+					e.queue = append(e.queue[:i], e.queue[i+1:]...)
+					break
+				}
+			}
+			return r
+		}
+	}
+	return nil
+}
+
+func (e *Engine) release(r *run) {
+	e.mu.Lock()
+	if e.holder == r.rec.Id {
+		e.holder = ""
+	}
+	r.mu.Lock()
+	terminal := isTerminal(r.rec.State) || r.rec.State == glissv1.ScanState_SCAN_STATE_INTERRUPTED
+	r.mu.Unlock()
+	if terminal {
+		delete(e.runs, r.rec.Id)
+	}
+	e.mu.Unlock()
+	e.signal()
+}
+
+// runScan acquires the points of one scan from its first point not stored.
+func (e *Engine) runScan(ctx context.Context, r *run) {
+	defer e.release(r)
+	id := r.rec.Id
+	start, err := e.store.PointCount(id)
+	if err != nil {
+		e.endWith(ctx, r, glissv1.ScanState_SCAN_STATE_PAUSED, fmt.Sprintf("cannot read the stored point count: %v", err))
+		return
+	}
+	r.mu.Lock()
+	r.durable = start
+	r.writeErr = nil
+	r.recent = r.recent[:0]
+	reason := "started"
+	if start > 0 {
+		reason = fmt.Sprintf("continuing from point %d of %d", start, r.plan.Points)
+	}
+	err = e.transitionLocked(ctx, r, glissv1.ScanState_SCAN_STATE_RUNNING, reason)
+	r.mu.Unlock()
+	if err != nil {
+		e.log.Error("record state", "scan", id, "err", err)
+	}
+
+	last := plan.Target{} // what this run has commanded so far
+	if err := e.setFixed(ctx, r, &last); err != nil {
+		if !e.holdOnError(ctx, r, fmt.Sprintf("fixed settings: %v", err), &last) {
+			return
+		}
+	}
+	for seq := start; seq < r.plan.Points; {
+		// Control requests take effect between points.
+		stop, held := e.between(ctx, r, &last)
+		if stop {
+			return
+		}
+		if held {
+			// Points queued before the pause may have failed to store:
+			// continue from the first point the store does not have.
+			seq = e.waitStored(ctx, r)
+			continue
+		}
+		p, err := e.acquire(ctx, r, seq, &last)
+		if err != nil {
+			if !e.holdOnError(ctx, r, fmt.Sprintf("point %d: %v", seq, err), &last) {
+				return
+			}
+			// Resumed: restart from the first point not stored.
+			seq = e.waitStored(ctx, r)
+			continue
+		}
+		if err := e.store.AppendPoint(ctx, p, func(err error) { e.pointDurable(r, p, err) }); err != nil {
+			if !e.holdOnError(ctx, r, fmt.Sprintf("point %d: store: %v", seq, err), &last) {
+				return
+			}
+			seq = e.waitStored(ctx, r)
+			continue
+		}
+		seq++
+		if msg := e.interlockAfter(ctx, r, p); msg != "" {
+			r.mu.Lock()
+			r.pauseSet, r.pauseReq = true, msg
+			r.mu.Unlock()
+		}
+	}
+	// Every point is queued: wait until the store has them all.
+	if err := e.store.Sync(context.WithoutCancel(ctx)); err != nil {
+		e.endWith(ctx, r, glissv1.ScanState_SCAN_STATE_PAUSED, fmt.Sprintf("store: %v", err))
+		return
+	}
+	if n := e.durableOrStored(r); n != r.plan.Points {
+		// A write failed after the last point was queued.
+		if !e.holdOnError(ctx, r, fmt.Sprintf("store has %d of %d points", n, r.plan.Points), &last) {
+			return
+		}
+		e.runScanTail(ctx, r)
+		return
+	}
+	e.endWith(ctx, r, glissv1.ScanState_SCAN_STATE_SUCCEEDED, fmt.Sprintf("all %d points stored", r.plan.Points))
+}
+
+// runScanTail re-enters runScan's loop after a late write error was resolved
+// by a resume; the bench is still held.
+func (e *Engine) runScanTail(ctx context.Context, r *run) {
+	e.mu.Lock()
+	e.holder = r.rec.Id
+	e.mu.Unlock()
+	r.mu.Lock()
+	r.rec.State = glissv1.ScanState_SCAN_STATE_QUEUED // runScan records QUEUED→RUNNING as a resume
+	r.mu.Unlock()
+	e.runScan(ctx, r)
+}
+
+func (e *Engine) durableOrStored(r *run) uint64 {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	return r.durable
+}
+
+// waitStored waits for the store to settle and returns the stored count.
+func (e *Engine) waitStored(ctx context.Context, r *run) uint64 {
+	_ = e.store.Sync(context.WithoutCancel(ctx))
+	n, err := e.store.PointCount(r.rec.Id)
+	if err != nil {
+		return e.durableOrStored(r)
+	}
+	r.mu.Lock()
+	r.durable = n
+	r.writeErr = nil
+	r.mu.Unlock()
+	return n
+}
+
+// pointDurable is the store's callback: only now may anyone hear of p.
+func (e *Engine) pointDurable(r *run, p *glissv1.Point, err error) {
+	r.mu.Lock()
+	if err != nil {
+		if r.writeErr == nil {
+			r.writeErr = fmt.Errorf("store point %d: %w", p.Seq, err)
+			// The runner pauses before its next point.
+			r.pauseSet, r.pauseReq = true, fmt.Sprintf("store write failed at point %d: %v", p.Seq, err)
+		}
+		r.mu.Unlock()
+		return
+	}
+	if p.Seq+1 > r.durable {
+		r.durable = p.Seq + 1
+	}
+	if len(r.recent) >= recentCap {
+		n := copy(r.recent, r.recent[recentCap/2:])
+		r.recent = r.recent[:n]
+	}
+	r.recent = append(r.recent, p)
+	r.mu.Unlock()
+	e.notify(r.rec.Id)
+}
+
+// between handles pause and cancel requests and daemon shutdown; stop is
+// true when the runner must stop working on this scan, held when it was
+// paused and resumed.
+func (e *Engine) between(ctx context.Context, r *run, last *plan.Target) (stop, held bool) {
+	for {
+		r.mu.Lock()
+		switch {
+		case r.cancelSet:
+			reason := r.cancelReq
+			r.mu.Unlock()
+			e.endWith(ctx, r, glissv1.ScanState_SCAN_STATE_CANCELLED, reason)
+			return true, held
+		case ctx.Err() != nil:
+			r.mu.Unlock()
+			e.endWith(ctx, r, glissv1.ScanState_SCAN_STATE_INTERRUPTED, "glissd shut down; resume with gliss scan resume")
+			return true, held
+		case r.pauseSet:
+			reason := r.pauseReq
+			r.pauseSet = false
+			r.mu.Unlock()
+			if !e.hold(ctx, r, reason, last) {
+				return true, held
+			}
+			held = true
+			continue
+		}
+		r.mu.Unlock()
+		return false, held
+	}
+}
+
+// holdOnError pauses the scan with reason and waits; it returns false when
+// the scan must stop (cancelled or shutdown).
+func (e *Engine) holdOnError(ctx context.Context, r *run, reason string, last *plan.Target) bool {
+	e.log.Warn("scan paused on error", "scan", r.rec.Id, "reason", reason)
+	*last = plan.Target{} // instruments may be anywhere now: command everything again
+	if !e.hold(ctx, r, reason, last) {
+		return false
+	}
+	stop, _ := e.between(ctx, r, last)
+	return !stop
+}
+
+// hold records PAUSED and waits for resume, cancel or shutdown. It returns
+// true on resume.
+func (e *Engine) hold(ctx context.Context, r *run, reason string, last *plan.Target) bool {
+	r.mu.Lock()
+	if err := e.transitionLocked(ctx, r, glissv1.ScanState_SCAN_STATE_PAUSED, reason); err != nil {
+		e.log.Error("record pause", "scan", r.rec.Id, "err", err)
+	}
+	resume := r.resume
+	r.mu.Unlock()
+	for {
+		select {
+		case <-ctx.Done():
+			e.endWith(ctx, r, glissv1.ScanState_SCAN_STATE_INTERRUPTED, "glissd shut down while the scan was paused ("+reason+")")
+			return false
+		case <-resume:
+		}
+		r.mu.Lock()
+		if r.cancelSet {
+			reason := r.cancelReq
+			r.mu.Unlock()
+			e.endWith(ctx, r, glissv1.ScanState_SCAN_STATE_CANCELLED, reason)
+			return false
+		}
+		if r.rec.State == glissv1.ScanState_SCAN_STATE_PAUSED && !r.pauseSet {
+			err := e.transitionLocked(ctx, r, glissv1.ScanState_SCAN_STATE_RUNNING, "resumed")
+			r.mu.Unlock()
+			if err != nil {
+				e.log.Error("record resume", "scan", r.rec.Id, "err", err)
+			}
+			*last = plan.Target{}
+			return true
+		}
+		resume = r.resume
+		r.mu.Unlock()
+	}
+}
+
+func (e *Engine) endWith(ctx context.Context, r *run, to glissv1.ScanState, reason string) {
+	_ = e.store.Sync(context.WithoutCancel(ctx))
+	if n, err := e.store.PointCount(r.rec.Id); err == nil {
+		r.mu.Lock()
+		r.durable = n
+		r.mu.Unlock()
+	}
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	if err := e.transitionLocked(ctx, r, to, reason); err != nil {
+		e.log.Error("record end of scan", "scan", r.rec.Id, "err", err)
+	}
+}
+
+// setFixed applies the spec's fixed settings.
+func (e *Engine) setFixed(ctx context.Context, r *run, last *plan.Target) error {
+	t := r.plan.Fixed
+	if t == (plan.Target{}) {
+		return nil
+	}
+	if err := r.plan.Check(t); err != nil {
+		return err
+	}
+	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout)
+	defer cancel()
+	return e.command(pctx, t, last)
+}
+
+// command sets every instrument whose target changed, in parallel, and
+// returns when all have arrived.
+func (e *Engine) command(ctx context.Context, t plan.Target, last *plan.Target) error {
+	g, gctx := errgroup.WithContext(ctx)
+	b := e.bench
+	if t.StageMM != nil && !same(t.StageMM, last.StageMM) {
+		s := b.Stage()
+		mm := *t.StageMM
+		g.Go(func() error {
+			if err := s.MoveToMM(gctx, mm); err != nil {
+				return fmt.Errorf("stage %q: move to %.3f mm: %w", b.ByRole(drivers.RoleStage).Name, mm, err)
+			}
+			return nil
+		})
+	}
+	if t.AngleDeg != nil && !same(t.AngleDeg, last.AngleDeg) {
+		a := b.Attenuator()
+		deg := *t.AngleDeg
+		g.Go(func() error {
+			if err := a.SetAngleDeg(gctx, deg); err != nil {
+				return fmt.Errorf("attenuator %q: rotate to %.3f°: %w", b.ByRole(drivers.RoleAttenuator).Name, deg, err)
+			}
+			return nil
+		})
+	}
+	if t.DetuningMeV != nil && !same(t.DetuningMeV, last.DetuningMeV) {
+		l := b.Laser()
+		mev := *t.DetuningMeV
+		g.Go(func() error {
+			if err := l.SetDetuningMeV(gctx, mev); err != nil {
+				return fmt.Errorf("laser %q: detune to %.4f meV: %w", b.ByRole(drivers.RoleLaser).Name, mev, err)
+			}
+			return nil
+		})
+	}
+	if t.TemperatureK != nil && !same(t.TemperatureK, last.TemperatureK) {
+		th := b.Thermometer()
+		k := *t.TemperatureK
+		g.Go(func() error {
+			if err := th.SetSetpointK(gctx, k); err != nil {
+				return fmt.Errorf("thermometer %q: setpoint %.3f K: %w", b.ByRole(drivers.RoleThermometer).Name, k, err)
+			}
+			return nil
+		})
+	}
+	err := g.Wait()
+	if err == nil {
+		last.Merge(t)
+	} else {
+		*last = plan.Target{}
+	}
+	return err
+}
+
+func same(a, b *float64) bool { return a != nil && b != nil && *a == *b }
+
+// acquire measures point seq: set, settle, read the power meter, gate.
+func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *plan.Target) (*glissv1.Point, error) {
+	idx, values, t := r.plan.At(seq)
+	// Interlock: checked again before every command.
+	if err := r.plan.Check(t); err != nil {
+		return nil, err
+	}
+	// The point is finished even when the daemon is asked to stop.
+	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout+r.plan.Gate+r.plan.Settle)
+	defer cancel()
+	started := e.opts.Now()
+	if err := e.command(pctx, t, last); err != nil {
+		return nil, err
+	}
+	if r.plan.Settle > 0 {
+		if err := sleep(pctx, e.bench.Scale(r.plan.Settle)); err != nil {
+			return nil, err
+		}
+	}
+	p := &glissv1.Point{
+		ScanId: r.rec.Id, Seq: seq, Index: idx, Values: values,
+		GateMs:    float64(r.plan.Gate) / float64(time.Millisecond),
+		StartedAt: timestamppb.New(started),
+		Commanded: &glissv1.Commanded{
+			StageMm: last.StageMM, GddPs2: last.GDDPS2, AngleDeg: last.AngleDeg,
+			PowerUw: last.PowerUW, DetuningMev: last.DetuningMeV, TemperatureK: last.TemperatureK,
+		},
+	}
+	if pm := e.bench.PowerMeter(); pm != nil {
+		uw, err := pm.PowerUW(pctx)
+		if err != nil {
+			return nil, fmt.Errorf("power meter %q: read: %w", e.bench.ByRole(drivers.RolePowerMeter).Name, err)
+		}
+		if math.IsNaN(uw) || math.IsInf(uw, 0) {
+			return nil, fmt.Errorf("power meter %q: reading %v is not a number", e.bench.ByRole(drivers.RolePowerMeter).Name, uw)
+		}
+		p.MeasuredPowerUw = &uw
+	}
+	if th := e.bench.Thermometer(); th != nil {
+		k, err := th.TemperatureK(pctx)
+		if err != nil {
+			return nil, fmt.Errorf("thermometer %q: read: %w", e.bench.ByRole(drivers.RoleThermometer).Name, err)
+		}
+		p.TemperatureK = &k
+	}
+	c := e.bench.Counter()
+	counts, err := c.Count(pctx, r.plan.Gate)
+	if err != nil {
+		return nil, fmt.Errorf("counter %q: gate %v: %w", e.bench.ByRole(drivers.RoleCounter).Name, r.plan.Gate, err)
+	}
+	if want := len(c.Channels()); len(counts) != want {
+		return nil, fmt.Errorf("counter %q: %d channels returned, %d expected", e.bench.ByRole(drivers.RoleCounter).Name, len(counts), want)
+	}
+	p.Counts = counts
+	p.FinishedAt = timestamppb.New(e.opts.Now())
+	return p, nil
+}
+
+// interlockAfter checks a measured point against the count-rate ceilings
+// and the maximum power. On a violation it sets the attenuator to its
+// minimum at once and returns the pause reason. Software limits only: never
+// a substitute for the hardware interlocks of the lab.
+func (e *Engine) interlockAfter(ctx context.Context, r *run, p *glissv1.Point) string {
+	var reason string
+	if ce := e.bench.ByRole(drivers.RoleCounter); ce != nil && len(ce.Limits.CountRateMaxHz) > 0 {
+		gateS := p.GateMs / 1000
+		for i, ch := range e.bench.Counter().Channels() {
+			if ceil, ok := ce.Limits.CountRateMaxHz[ch]; ok && ceil > 0 && i < len(p.Counts) {
+				if rate := float64(p.Counts[i]) / gateS; rate > ceil {
+					reason = fmt.Sprintf("interlock: count rate %.4g /s on channel %s above its ceiling %.4g /s at point %d", rate, ch, ceil, p.Seq)
+					break
+				}
+			}
+		}
+	}
+	if reason == "" && p.MeasuredPowerUw != nil {
+		if ae := e.bench.ByRole(drivers.RoleAttenuator); ae != nil && ae.Limits.PowerMaxUW > 0 && *p.MeasuredPowerUw > ae.Limits.PowerMaxUW {
+			reason = fmt.Sprintf("interlock: measured power %.4g µW above the maximum %g µW at point %d", *p.MeasuredPowerUw, ae.Limits.PowerMaxUW, p.Seq)
+		}
+	}
+	if reason == "" {
+		return ""
+	}
+	e.log.Warn("interlock tripped", "scan", r.rec.Id, "reason", reason)
+	if a := e.bench.Attenuator(); a != nil {
+		m := e.bench.Calibration.Attenuator
+		deg, err := m.AngleDeg(m.PMinUW)
+		if err == nil {
+			actx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout)
+			err = a.SetAngleDeg(actx, deg)
+			cancel()
+		}
+		if err != nil {
+			reason += fmt.Sprintf("; setting the attenuator to its minimum failed: %v", err)
+		} else {
+			reason += "; attenuator set to its minimum"
+		}
+	}
+	e.logf(r, "error", "%s", reason)
+	return reason
+}
+
+func sleep(ctx context.Context, d time.Duration) error {
+	if d <= 0 {
+		return nil
+	}
+	t := time.NewTimer(d)
+	defer t.Stop()
+	select {
+	case <-t.C:
+		return nil
+	case <-ctx.Done():
+		return ctx.Err()
+	}
+}
+
+// Snapshot returns a copy of a live scan's record, or nil.
+func (e *Engine) snapshot(id string) (*glissv1.Scan, uint64, bool) {
+	e.mu.Lock()
+	r := e.runs[id]
+	e.mu.Unlock()
+	if r == nil {
+		return nil, 0, false
+	}
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	return proto.Clone(r.rec).(*glissv1.Scan), r.version, true
+}
