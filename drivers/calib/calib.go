@@ -112,9 +112,9 @@ func (s Stretcher) PositionMM(gddPS2 float64) (float64, error) {
 //
 // (Malus's law; Hecht, Optics, 5th ed., §8.2).
 type Malus struct {
-	PMinUW    float64 // extinction floor, µW
-	PMaxUW    float64 // full transmission, µW
-	Theta0Deg float64 // angle of maximum transmission, deg
+	PMinUW    float64 `json:"p_min_uw"`   // extinction floor, µW
+	PMaxUW    float64 `json:"p_max_uw"`   // full transmission, µW
+	Theta0Deg float64 `json:"theta0_deg"` // angle of maximum transmission, deg
 }
 
 // PowerUW is the power at angle deg.
@@ -148,3 +148,15 @@ func SplittingMeV(dnm, atNM float64) float64 { return HcMeVnm * dnm / (atNM * at
 
 // SplittingNM is the inverse of SplittingMeV.
 func SplittingNM(dmev, atNM float64) float64 { return dmev * atNM * atNM / HcMeVnm }
+
+// DetuningMeV is the laser detuning per photon from a two-photon resonance,
+// both given as vacuum wavelengths: ΔL = hc/λL − hc/λres (§6).
+func DetuningMeV(laserNM, resonanceNM float64) float64 {
+	return HcMeVnm/laserNM - HcMeVnm/resonanceNM
+}
+
+// LaserNM is the laser wavelength that gives detuning dmev from the
+// two-photon resonance at resonanceNM (inverse of DetuningMeV).
+func LaserNM(dmev, resonanceNM float64) float64 {
+	return HcMeVnm / (HcMeVnm/resonanceNM + dmev)
+}
