@@ -1,0 +1,121 @@
+package store
+
+import (
+	"context"
+	"fmt"
+	"math"
+
+	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
+	bolt "go.etcd.io/bbolt"
+)
+
+// readChunk is how many points ReadPoints decodes per read transaction.
+const readChunk = 512
+
+// AppendPoint queues a point and returns at once, unless the queue is full:
+// then it blocks (bounded memory) until there is room or ctx ends.
+//
+// When AppendPoint returns nil, done (if not nil) is called exactly once,
+// from the writer goroutine, after the transaction holding the point is
+// committed and fsynced (err nil) or has failed (err set; nothing of the point
+// is stored). Only from that callback may anyone be told of the point. done
+// must not block: it holds up the writer.
+//
+// Points of one scan must arrive in seq order starting at the stored count;
+// a duplicate or gap gets ErrSequence, a point of an unknown scan ErrNotFound.
+// After a failed commit the points queued behind it get ErrSequence too (the
+// failed ones are missing): the caller resumes from PointCount.
+//
+// When AppendPoint returns an error (invalid point, ctx ended, ErrClosed),
+// done is never called.
+func (s *Store) AppendPoint(ctx context.Context, p *glissv1.Point, done func(err error)) error {
+	if p == nil {
+		return fmt.Errorf("store: append point: nil point: %w", ErrInvalid)
+	}
+	if err := checkScanID(p.GetScanId()); err != nil {
+		return fmt.Errorf("store: append point %d: %w", p.GetSeq(), err)
+	}
+	data, err := marshalOpts.Marshal(p)
+	if err != nil {
+		return fmt.Errorf("store: scan %q: point %d: encode: %w", p.GetScanId(), p.GetSeq(), err)
+	}
+	if err := s.submit(ctx, op{kind: opPoint, scanID: p.GetScanId(), seq: p.GetSeq(), data: data, done: done}); err != nil {
+		return fmt.Errorf("store: scan %q: append point %d: %w", p.GetScanId(), p.GetSeq(), err)
+	}
+	return nil
+}
+
+// PointCount is the number of durable points of scan id (points are stored
+// without gaps, so they are seq 0 … count-1).
+func (s *Store) PointCount(id string) (uint64, error) {
+	var n uint64
+	err := s.view(func(tx *bolt.Tx) error {
+		pb := tx.Bucket(bucketPoints).Bucket([]byte(id))
+		if pb == nil {
+			return fmt.Errorf("scan %q: %w", id, ErrNotFound)
+		}
+		var err error
+		if n, err = storedCount(pb); err != nil {
+			return fmt.Errorf("scan %q: %w", id, err)
+		}
+		return nil
+	})
+	if err != nil {
+		return 0, fmt.Errorf("store: point count: %w", err)
+	}
+	return n, nil
+}
+
+// ReadPoints calls fn for each stored point of scan id with seq ≥ from, in
+// seq order. It reads in chunks of short read transactions, so a long export
+// never holds a transaction open (which would stall the writer's remapping)
+// and never holds the whole scan in memory. fn runs outside any transaction;
+// an error from fn stops the read and is returned as is. Points committed
+// while the read goes on are included if they are reached.
+func (s *Store) ReadPoints(ctx context.Context, id string, from uint64, fn func(*glissv1.Point) error) error {
+	chunk := make([]*glissv1.Point, 0, readChunk)
+	var key [8]byte
+	for {
+		if err := ctx.Err(); err != nil {
+			return fmt.Errorf("store: read points of scan %q from %d: %w", id, from, err)
+		}
+		chunk = chunk[:0]
+		err := s.view(func(tx *bolt.Tx) error {
+			pb := tx.Bucket(bucketPoints).Bucket([]byte(id))
+			if pb == nil {
+				return fmt.Errorf("scan %q: %w", id, ErrNotFound)
+			}
+			c := pb.Cursor()
+			for k, v := c.Seek(putSeqKey(key[:], from)); k != nil && len(chunk) < readChunk; k, v = c.Next() {
+				seq, err := decodeSeqKey(k)
+				if err != nil {
+					return fmt.Errorf("scan %q: %w", id, err)
+				}
+				p, err := decodePoint(id, seq, v)
+				if err != nil {
+					return err
+				}
+				chunk = append(chunk, p)
+			}
+			return nil
+		})
+		if err != nil {
+			return fmt.Errorf("store: read points: %w", err)
+		}
+		n := len(chunk)
+		if n == 0 {
+			return nil
+		}
+		last := chunk[n-1].GetSeq()
+		for i, p := range chunk {
+			if err := fn(p); err != nil {
+				return err
+			}
+			chunk[i] = nil // let the point go once fn is done with it
+		}
+		if n < readChunk || last == math.MaxUint64 {
+			return nil
+		}
+		from = last + 1
+	}
+}
