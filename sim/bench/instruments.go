@@ -127,8 +127,9 @@ func (b *base) moveAxis(ctx context.Context, sp axisSpec, target float64) error 
 	st.mu.Lock()
 	ax := sp.pick(st)
 	if ax.mv != nil {
+		inFlight := ax.mv.toPos
 		st.mu.Unlock()
-		return fmt.Errorf("%s %q: %s: busy, a move to %s %s is in progress", b.kind, b.name, op, sp.f(ax.mv.toPos), sp.unit)
+		return fmt.Errorf("%s %q: %s: busy, a move to %s %s is in progress", b.kind, b.name, op, sp.f(inFlight), sp.unit)
 	}
 	from := ax.pos
 	to := math.Min(sp.max, math.Max(sp.min, target+noise))
