@@ -130,7 +130,12 @@ func (e *Engine) Validate(spec *glissv1.ScanSpec) (*plan.Plan, *glissv1.Preview,
 	if err != nil {
 		return nil, nil, err
 	}
-	return p, p.Preview(e.currentTarget()), nil
+	pv := p.Preview(e.currentTarget())
+	if ts := e.bench.TimeScale; ts > 1 {
+		// A simulated bench running faster than real time.
+		pv.EstimatedDurationS /= ts
+	}
+	return p, pv, nil
 }
 
 // currentTarget reads where the instruments are now, for previews.
@@ -184,6 +189,7 @@ func (e *Engine) Submit(ctx context.Context, spec *glissv1.ScanSpec) (*glissv1.S
 	if err := e.store.CreateScan(ctx, rec); err != nil {
 		return nil, fmt.Errorf("store scan %s: %w", rec.Id, err)
 	}
+	out := proto.Clone(rec).(*glissv1.Scan) // before the runner can touch rec
 	r := &run{rec: rec, plan: p, resume: make(chan struct{})}
 	e.mu.Lock()
 	e.runs[rec.Id] = r
@@ -191,7 +197,7 @@ func (e *Engine) Submit(ctx context.Context, spec *glissv1.ScanSpec) (*glissv1.S
 	e.mu.Unlock()
 	e.signal()
 	e.log.Info("scan queued", "scan", rec.Id, "name", spec.GetName(), "points", p.Points, "estimated_s", pv.EstimatedDurationS)
-	return proto.Clone(rec).(*glissv1.Scan), nil
+	return out, nil
 }
 
 func (e *Engine) signal() {

@@ -127,8 +127,9 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 			seq = e.waitStored(ctx, r)
 			continue
 		}
-		if err := e.store.AppendPoint(ctx, p, func(err error) { e.pointDurable(r, p, err) }); err != nil {
-			if !e.holdOnError(ctx, r, fmt.Sprintf("point %d: store: %v", seq, err), &last) {
+		// The point is stored even when the daemon is shutting down.
+		if err := e.store.AppendPoint(context.WithoutCancel(ctx), p, func(err error) { e.pointDurable(r, p, err) }); err != nil {
+			if !e.holdOnError(ctx, r, fmt.Sprintf("point %d: %v", seq, err), &last) {
 				return
 			}
 			seq = e.waitStored(ctx, r)

@@ -252,7 +252,7 @@ func New(spec *glissv1.ScanSpec, b *drivers.Bench) (*Plan, error) {
 			inv.add(field+".value", "%s", err)
 			continue
 		}
-		p.Fixed.merge(p.target(f.GetKind(), f.GetValue()))
+		p.Fixed.Merge(p.target(f.GetKind(), f.GetValue()))
 	}
 	if len(inv.Fields) > 0 {
 		return nil, inv
@@ -487,7 +487,8 @@ func (p *Plan) target(k glissv1.AxisKind, v float64) Target {
 
 func ptr(v float64) *float64 { return &v }
 
-func (t *Target) merge(o Target) {
+// Merge sets the fields that o sets.
+func (t *Target) Merge(o Target) {
 	if o.StageMM != nil {
 		t.StageMM = o.StageMM
 	}
@@ -540,7 +541,7 @@ func (p *Plan) At(seq uint64) (idx []uint32, values []float64, t Target) {
 	for i, j := range idx {
 		v := p.Axes[i].Values[j]
 		values[i] = v
-		t.merge(p.target(p.Axes[i].Kind, v))
+		t.Merge(p.target(p.Axes[i].Kind, v))
 	}
 	return idx, values, t
 }
@@ -596,7 +597,7 @@ func (p *Plan) Preview(start Target) *glissv1.Preview {
 		pv.AxisCounts = append(pv.AxisCounts, uint32(len(a.Values)))
 	}
 	cur := start
-	cur.merge(p.Fixed)
+	cur.Merge(p.Fixed)
 	var total time.Duration
 	l := p.limits
 	for seq := uint64(0); seq < p.Points; seq++ {
