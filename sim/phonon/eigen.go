@@ -10,8 +10,34 @@ import "math"
 // the eigenvectors orthonormal to rounding even when two eigenvalues nearly
 // cross, which closed-form (cubic) solutions do not.
 func symEig3(h *[3][3]float64, e *[3]float64, v *[3][3]float64) {
-	a := *h
 	*v = [3][3]float64{{1, 0, 0}, {0, 1, 0}, {0, 0, 1}}
+	jacobi(*h, e, v)
+}
+
+// symEig3Warm is symEig3 started from the orthonormal matrix v (the
+// eigenvectors of a nearby matrix, such as H at the previous
+// right-hand-side call; the caller re-orthonormalises it now and then, see
+// orthonormalise): it rotates h into that basis first, where it is
+// nearly diagonal, so one or two sweeps finish the job. The result is an
+// eigendecomposition of h to the same accuracy as symEig3's.
+func symEig3Warm(h *[3][3]float64, e *[3]float64, v *[3][3]float64) {
+	var hv, a [3][3]float64
+	for i := range 3 {
+		for j := range 3 {
+			hv[i][j] = h[i][0]*v[0][j] + h[i][1]*v[1][j] + h[i][2]*v[2][j]
+		}
+	}
+	for i := range 3 {
+		for j := i; j < 3; j++ {
+			a[i][j] = v[0][i]*hv[0][j] + v[1][i]*hv[1][j] + v[2][i]*hv[2][j]
+			a[j][i] = a[i][j]
+		}
+	}
+	jacobi(a, e, v)
+}
+
+// jacobi diagonalises a by rotations accumulated into v.
+func jacobi(a [3][3]float64, e *[3]float64, v *[3][3]float64) {
 	for sweep := 0; sweep < 50; sweep++ {
 		off := a[0][1]*a[0][1] + a[0][2]*a[0][2] + a[1][2]*a[1][2]
 		diag := a[0][0]*a[0][0] + a[1][1]*a[1][1] + a[2][2]*a[2][2]
@@ -57,5 +83,22 @@ func rotate(a, v *[3][3]float64, p, q int) {
 		vkp, vkq := v[k][p], v[k][q]
 		v[k][p] = c*vkp - s*vkq
 		v[k][q] = s*vkp + c*vkq
+	}
+}
+
+// orthonormalise re-orthonormalises the columns of v (modified Gram–Schmidt),
+// so that rounding does not pile up over many warm starts.
+func orthonormalise(v *[3][3]float64) {
+	for k := range 3 {
+		for l := range k {
+			d := v[0][k]*v[0][l] + v[1][k]*v[1][l] + v[2][k]*v[2][l]
+			v[0][k] -= d * v[0][l]
+			v[1][k] -= d * v[1][l]
+			v[2][k] -= d * v[2][l]
+		}
+		n := math.Sqrt(v[0][k]*v[0][k] + v[1][k]*v[1][k] + v[2][k]*v[2][k])
+		v[0][k] /= n
+		v[1][k] /= n
+		v[2][k] /= n
 	}
 }

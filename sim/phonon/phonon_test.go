@@ -307,3 +307,70 @@ func TestMapDeterministic(t *testing.T) {
 		t.Error("cancelled map returned no error")
 	}
 }
+
+// TestSecularFastPath: the direct Pauli-plus-dephasing evaluation equals the
+// secular rule written out whenever no transition frequencies coincide, and
+// an equidistant spectrum does couple the coherences ρ01 and ρ12.
+func TestSecularFastPath(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	b := Bath{AlphaPS2: 0.04, CutoffMeV: 1.3, TemperatureK: 9}
+	sp := newSpectrum(&b)
+	for n := 0; n < 500; n++ {
+		var h, v [3][3]float64
+		var e [3]float64
+		h[1][1], h[2][2] = 4*rng.NormFloat64(), 4*rng.NormFloat64()
+		h[0][1], h[1][2] = rng.NormFloat64(), rng.NormFloat64()
+		h[1][0], h[2][1] = h[0][1], h[1][2]
+		symEig3(&h, &e, &v)
+		var a, g [3][3]float64
+		for i := range 3 {
+			for j := range 3 {
+				a[i][j] = v[1][i]*v[1][j] + 2*v[2][i]*v[2][j]
+			}
+		}
+		g[0][1], g[1][0] = sp.pair(e[0] - e[1])
+		g[0][2], g[2][0] = sp.pair(e[0] - e[2])
+		g[1][2], g[2][1] = sp.pair(e[1] - e[2])
+		dw := math.Min(math.Abs(e[0]-e[1]), math.Min(math.Abs(e[0]-e[2]), math.Abs(e[1]-e[2])))
+		cut := SecularCutoff * dw
+		if nearCoincidence(&e, cut) {
+			continue
+		}
+		var rho [3][3]complex128
+		for i := range 3 {
+			rho[i][i] = complex(rng.Float64(), 0)
+			for j := i + 1; j < 3; j++ {
+				rho[i][j] = complex(rng.NormFloat64(), rng.NormFloat64())
+				rho[j][i] = conj(rho[i][j])
+			}
+		}
+		var fast, slow [3][3]complex128
+		pauliAndDephasing(&a, &g, &rho, &fast)
+		secularLoop(&e, &a, &g, cut, &rho, &slow)
+		for i := range 3 {
+			for j := range 3 {
+				if d := cmplxAbs(fast[i][j] - slow[i][j]); d > 1e-13 {
+					t.Fatalf("element %d%d: fast %v, rule %v", i, j, fast[i][j], slow[i][j])
+				}
+			}
+		}
+	}
+	// Equidistant levels: ω01 = ω12, so ρ12 feeds dρ01.
+	e := [3]float64{-1, 0, 1}
+	var a, g [3][3]float64
+	a = [3][3]float64{{0.5, 0.3, 0.1}, {0.3, 1, 0.4}, {0.1, 0.4, 1.5}}
+	g[0][1], g[1][0] = sp.pair(-1)
+	g[0][2], g[2][0] = sp.pair(-2)
+	g[1][2], g[2][1] = sp.pair(-1)
+	if !nearCoincidence(&e, 0.1) {
+		t.Fatal("equidistant spectrum not detected")
+	}
+	var rho, out [3][3]complex128
+	rho[1][2], rho[2][1] = 1, 1
+	secularLoop(&e, &a, &g, 0.1, &rho, &out)
+	if out[0][1] == 0 {
+		t.Error("equidistant spectrum: ρ12 does not feed dρ01")
+	}
+}
+
+func cmplxAbs(z complex128) float64 { return math.Hypot(real(z), imag(z)) }

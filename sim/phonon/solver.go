@@ -87,6 +87,7 @@ type Solver struct {
 	g1, g2         float64 // radiative decay X→G, XX→X, 1/ps
 	bath           bool
 	sp             spectrum
+	vWarm          [3][3]float64 // eigenvectors of the last H(t), the warm start of the next
 
 	// integrator
 	k           [7][nY]float64
@@ -169,6 +170,9 @@ func (s *Solver) setup(l *model.Ladder, b *Bath) {
 		s.sp = newSpectrum(b)
 	}
 	s.steps, s.rejects, s.rhsCalls = 0, 0, 0
+	// Every point starts from the same basis, so a point is a pure function
+	// of its parameters whatever the solver solved before.
+	s.vWarm = [3][3]float64{{1, 0, 0}, {0, 1, 0}, {0, 0, 1}}
 }
 
 // phases returns u1 = e^{iφ1(t)} and u2 = e^{iφ2(t)}, φ_j = E_j·t + S_j·t²/2.
@@ -242,13 +246,14 @@ func (s *Solver) rhs(t float64, y, dy *[nY]float64) {
 	d02 -= complex(0.5*s.g2, 0) * c02
 
 	if s.bath && om > rabiFloorRadPS {
-		var h, vec [3][3]float64
+		var h [3][3]float64
 		var e [3]float64
+		vec := &s.vWarm
 		h[1][1] = s.e1 + s.s1*t
 		h[2][2] = s.e2 + s.s2*t
 		h[0][1], h[1][0] = -s.k01*w, -s.k01*w
 		h[1][2], h[2][1] = -s.k12*w, -s.k12*w
-		symEig3(&h, &e, &vec)
+		symEig3Warm(&h, &e, vec)
 		// lab-frame ρ
 		r01 := c01 * u1
 		r12 := c12 * v
@@ -267,9 +272,9 @@ func (s *Solver) rhs(t float64, y, dy *[nY]float64) {
 				a[j][i] = a[i][j]
 			}
 		}
-		transformToEig(&vec, &rho, &re)
+		transformToEig(vec, &rho, &re)
 		redfieldEig(&s.sp, &e, &a, &re, &dre)
-		transformFromEig(&vec, &dre, &dl)
+		transformFromEig(vec, &dre, &dl)
 		d00 += real(dl[0][0])
 		d11 += real(dl[1][1])
 		d22 += real(dl[2][2])
@@ -372,6 +377,10 @@ func (s *Solver) integrate(t0, t1, maxStep, tol float64) error {
 			s.y = s.ynew
 			s.k[0] = s.k[6]
 			s.steps++
+			if s.bath {
+				// rounding in the warm-started rotations must not pile up
+				orthonormalise(&s.vWarm)
+			}
 			h = math.Min(hNew, maxStep)
 			if last {
 				break
