@@ -123,8 +123,6 @@ type yieldCache struct {
 	cap   int
 	order *list.List // front: most recent; values *yieldEntry
 	byKey map[model.Params]*list.Element
-	hits  atomic.Uint64
-	miss  atomic.Uint64
 }
 
 type yieldEntry struct {
@@ -141,10 +139,8 @@ func (yc *yieldCache) get(p model.Params) ([2]float64, bool) {
 	defer yc.mu.Unlock()
 	if e, ok := yc.byKey[p]; ok {
 		yc.order.MoveToFront(e)
-		yc.hits.Add(1)
 		return e.Value.(*yieldEntry).y, true
 	}
-	yc.miss.Add(1)
 	return [2]float64{}, false
 }
 
