@@ -33,46 +33,11 @@ const benchScanID = "01BENCH"
 func BenchmarkRawBolt(b *testing.B) {
 	for _, batch := range benchBatches {
 		b.Run(fmt.Sprintf("batch=%d", batch), func(b *testing.B) {
-			db, err := bolt.Open(filepath.Join(b.TempDir(), "raw.db"), 0o600, &bolt.Options{Timeout: time.Second})
-			if err != nil {
-				b.Fatal(err)
-			}
-			defer db.Close()
-			err = db.Update(func(tx *bolt.Tx) error {
-				pts, err := tx.CreateBucket(bucketPoints)
-				if err != nil {
-					return err
-				}
-				_, err = pts.CreateBucket([]byte(benchScanID))
-				return err
-			})
-			if err != nil {
-				b.Fatal(err)
-			}
+			db := openRawBolt(b)
 			keys := make([]byte, 8*batch)
 			b.ResetTimer()
 			start := time.Now()
-			for i := 0; i < b.N; i += batch {
-				n := min(batch, b.N-i)
-				err := db.Update(func(tx *bolt.Tx) error {
-					pb := tx.Bucket(bucketPoints).Bucket([]byte(benchScanID))
-					pb.FillPercent = 0.95
-					for j := 0; j < n; j++ {
-						seq := uint64(i + j)
-						data, err := marshalOpts.Marshal(testPoint(benchScanID, seq))
-						if err != nil {
-							return err
-						}
-						if err := pb.Put(putSeqKey(keys[8*j:], seq), data); err != nil {
-							return err
-						}
-					}
-					return nil
-				})
-				if err != nil {
-					b.Fatal(err)
-				}
-			}
+			rawWrite(b, db, keys, 0, b.N, batch)
 			rate := float64(b.N) / time.Since(start).Seconds()
 			b.StopTimer()
 			b.ReportMetric(rate, "points/s")
@@ -203,4 +168,111 @@ func BenchmarkReadPoints100k(b *testing.B) {
 	runtime.ReadMemStats(&ms)
 	b.ReportMetric(float64(ms.HeapInuse-min(base, ms.HeapInuse))/mib, "whole_scan_in_heap_MiB")
 	runtime.KeepAlive(all)
+}
+
+func openRawBolt(b *testing.B) *bolt.DB {
+	db, err := bolt.Open(filepath.Join(b.TempDir(), "raw.db"), 0o600, &bolt.Options{Timeout: time.Second})
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.Cleanup(func() { _ = db.Close() })
+	err = db.Update(func(tx *bolt.Tx) error {
+		pts, err := tx.CreateBucket(bucketPoints)
+		if err != nil {
+			return err
+		}
+		_, err = pts.CreateBucket([]byte(benchScanID))
+		return err
+	})
+	if err != nil {
+		b.Fatal(err)
+	}
+	return db
+}
+
+// rawWrite writes points [from, from+n) with plain bbolt, batch per Update.
+func rawWrite(b *testing.B, db *bolt.DB, keys []byte, from, n, batch int) {
+	for i := from; i < from+n; i += batch {
+		m := min(batch, from+n-i)
+		err := db.Update(func(tx *bolt.Tx) error {
+			pb := tx.Bucket(bucketPoints).Bucket([]byte(benchScanID))
+			pb.FillPercent = 0.95
+			for j := 0; j < m; j++ {
+				seq := uint64(i + j)
+				data, err := marshalOpts.Marshal(testPoint(benchScanID, seq))
+				if err != nil {
+					return err
+				}
+				if err := pb.Put(putSeqKey(keys[8*j:], seq), data); err != nil {
+					return err
+				}
+			}
+			return nil
+		})
+		if err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+// BenchmarkDurableVsRaw runs the store and the raw reference side by side,
+// alternating rounds of 8 batches on each, so that the ratio is not skewed by
+// the fsync latency of a shared disk drifting between two benchmarks. One op
+// is one point written by each.
+func BenchmarkDurableVsRaw(b *testing.B) {
+	for _, batch := range benchBatches {
+		b.Run(fmt.Sprintf("batch=%d", batch), func(b *testing.B) {
+			ctx := context.Background()
+			s, err := Open(filepath.Join(b.TempDir(), "store.db"), Options{MaxBatch: batch})
+			if err != nil {
+				b.Fatal(err)
+			}
+			defer s.Close()
+			if err := s.CreateScan(ctx, testScan(benchScanID, "bench", glissv1.ScanState_SCAN_STATE_RUNNING, t0)); err != nil {
+				b.Fatal(err)
+			}
+			db := openRawBolt(b)
+			keys := make([]byte, 8*batch)
+			var failed atomic.Int64
+			done := func(err error) {
+				if err != nil {
+					failed.Add(1)
+				}
+			}
+			storeWrite := func(from, n int) {
+				for i := from; i < from+n; i++ {
+					if err := s.AppendPoint(ctx, testPoint(benchScanID, uint64(i)), done); err != nil {
+						b.Fatal(err)
+					}
+				}
+				if err := s.Sync(ctx); err != nil {
+					b.Fatal(err)
+				}
+			}
+			var tRaw, tStore time.Duration
+			round := 8 * batch
+			b.ResetTimer()
+			for i, r := 0, 0; i < b.N; i, r = i+round, r+1 {
+				n := min(round, b.N-i)
+				for k := 0; k < 2; k++ {
+					start := time.Now()
+					if (r+k)%2 == 0 {
+						rawWrite(b, db, keys, i, n, batch)
+						tRaw += time.Since(start)
+					} else {
+						storeWrite(i, n)
+						tStore += time.Since(start)
+					}
+				}
+			}
+			b.StopTimer()
+			if n := failed.Load(); n > 0 {
+				b.Fatalf("%d points failed", n)
+			}
+			store, raw := float64(b.N)/tStore.Seconds(), float64(b.N)/tRaw.Seconds()
+			b.ReportMetric(store, "store_points/s")
+			b.ReportMetric(raw, "raw_points/s")
+			b.ReportMetric(store/raw, "x_raw")
+		})
+	}
 }

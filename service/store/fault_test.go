@@ -2,6 +2,7 @@ package store
 
 import (
 	"errors"
+	"log/slog"
 	"strings"
 	"sync/atomic"
 	"testing"
@@ -15,11 +16,14 @@ import (
 
 var errInjected = errors.New("injected: input/output error")
 
+// quiet drops the store's logs of the faults these tests cause on purpose.
+var quiet = slog.New(slog.DiscardHandler)
+
 // A failing commit fails exactly the items of that transaction, keeps what
 // was committed, and the store works again once the cause is gone.
 func TestWriteFault(t *testing.T) {
 	var failing atomic.Bool
-	o := Options{MaxDelay: time.Hour, beforeCommit: func() error {
+	o := Options{MaxDelay: time.Hour, Logger: quiet, beforeCommit: func() error {
 		if failing.Load() {
 			return errInjected
 		}
@@ -97,7 +101,7 @@ func TestWriteFault(t *testing.T) {
 // the commit in bbolt itself; what was committed stays intact and readable.
 func TestFileFull(t *testing.T) {
 	const maxSize = 1 << 20
-	s, path := openTest(t, Options{MaxBatch: 256, maxSizeBytes: maxSize})
+	s, path := openTest(t, Options{MaxBatch: 256, maxSizeBytes: maxSize, Logger: quiet})
 	if err := s.CreateScan(ctx, testScan("01M", "full", glissv1.ScanState_SCAN_STATE_RUNNING, t0)); err != nil {
 		t.Fatal(err)
 	}

@@ -19,7 +19,9 @@ const readChunk = 512
 // from the writer goroutine, after the transaction holding the point is
 // committed and fsynced (err nil) or has failed (err set; nothing of the point
 // is stored). Only from that callback may anyone be told of the point. done
-// must not block: it holds up the writer.
+// must not block: it holds up the writer; and it must not call the store's
+// write methods (AppendPoint, CreateScan, PutScan, Sync, AppendAudit, Check),
+// which wait for the writer it runs on. Reads are fine.
 //
 // Points of one scan must arrive in seq order starting at the stored count;
 // a duplicate or gap gets ErrSequence, a point of an unknown scan ErrNotFound.

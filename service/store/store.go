@@ -63,6 +63,8 @@ type Options struct {
 	// MaxDelay is how long the writer may wait to gather more items before
 	// committing. 0: commit as soon as the queue is drained (no added latency).
 	MaxDelay time.Duration
+	// Logger receives failed commits. nil: slog.Default().
+	Logger *slog.Logger
 
 	// beforeCommit, when set, runs inside each write transaction after the
 	// items are applied; an error from it aborts (rolls back) the
@@ -116,6 +118,9 @@ func Open(path string, o Options) (*Store, error) {
 	}
 	if o.MaxDelay < 0 {
 		o.MaxDelay = 0
+	}
+	if o.Logger == nil {
+		o.Logger = slog.Default()
 	}
 	db, err := bolt.Open(path, 0o600, &bolt.Options{
 		Timeout: o.LockTimeout,
@@ -339,7 +344,7 @@ func (s *Store) commit(batch []op) {
 		})
 		if err != nil {
 			err = fmt.Errorf("store %s: commit of %d items: %w", s.path, writes, err)
-			slog.Error("store: write transaction failed; its items are not stored", "path", s.path, "items", writes, "err", err)
+			s.opts.Logger.Error("store: write transaction failed; its items are not stored", "path", s.path, "items", writes, "err", err)
 			if s.errSinceSync == nil {
 				s.errSinceSync = err
 			}
