@@ -51,23 +51,28 @@ func (p *Pattern) String() string {
 	return p.re.String()
 }
 
+// decimalNumber is a plain decimal number: no hex, no underscores, no
+// "Inf"/"NaN" (which strconv.ParseFloat would accept).
+var decimalNumber = regexp.MustCompile(`^[-+]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][-+]?[0-9]{1,4})?$`)
+
 // defaultNumber is "number, optionally followed by a unit".
 var defaultNumber = regexp.MustCompile(`^\s*([-+]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][-+]?[0-9]+)?)\s*([A-Za-zµ°%]*)\s*$`)
 
-// siPrefix gives the factor of a unit prefix.
-var siPrefix = map[string]float64{
-	"": 1, "p": 1e-12, "n": 1e-9, "u": 1e-6, "µ": 1e-6, "m": 1e-3, "k": 1e3, "M": 1e6, "G": 1e9,
+// siPrefix gives the decimal exponent of a unit prefix.
+var siPrefix = map[string]int{
+	"": 0, "p": -12, "n": -9, "u": -6, "µ": -6, "m": -3, "k": 3, "M": 6, "G": 9,
 }
 
-// unitFactor converts a value in unit got to unit want: equal units, or the
-// same base unit with SI prefixes (1 mW = 1000 uW). An empty got means the
-// reply carried no unit and is taken to be in want.
-func unitFactor(got, want string) (float64, error) {
-	if got == "" || want == "" || got == want {
-		if got != "" && want == "" {
-			return 0, fmt.Errorf("reply carries unit %q, but the bench file names none for it", got)
-		}
-		return 1, nil
+// unitShift is the power of ten that converts a value in unit got to unit
+// want: equal units, or the same base unit with SI prefixes (1 mW =
+// 10³ µW). An empty got means the reply carried no unit and is taken to be
+// in want.
+func unitShift(got, want string) (int, error) {
+	if got == "" || got == want {
+		return 0, nil
+	}
+	if want == "" {
+		return 0, fmt.Errorf("reply carries unit %q, but the bench file names none for it", got)
 	}
 	for _, base := range []string{"W", "m", "K", "s", "Hz", "eV", "deg", "°", "V", "A"} {
 		pg, okg := strings.CutSuffix(got, base)
@@ -75,13 +80,30 @@ func unitFactor(got, want string) (float64, error) {
 		if !okg || !okw {
 			continue
 		}
-		fg, okg := siPrefix[pg]
-		fw, okw := siPrefix[pw]
+		eg, okg := siPrefix[pg]
+		ew, okw := siPrefix[pw]
 		if okg && okw {
-			return fg / fw, nil
+			return eg - ew, nil
 		}
 	}
 	return 0, fmt.Errorf("unit %q cannot be converted to %q", got, want)
+}
+
+// shiftDecimal parses num·10^shift as one decimal number, so that the
+// conversion adds no rounding of its own ("1.5E-2" mW → 15 µW exactly).
+func shiftDecimal(num string, shift int) (float64, error) {
+	if shift == 0 {
+		return strconv.ParseFloat(num, 64)
+	}
+	mant, exp := num, 0
+	if i := strings.IndexAny(num, "eE"); i >= 0 {
+		e, err := strconv.Atoi(num[i+1:])
+		if err != nil {
+			return 0, err
+		}
+		mant, exp = num[:i], e
+	}
+	return strconv.ParseFloat(mant+"e"+strconv.Itoa(exp+shift), 64)
 }
 
 // ParseNumber reads a number from a reply. With a pattern, its group named
@@ -112,15 +134,18 @@ func ParseNumber(reply string, p *Pattern, want string) (float64, error) {
 		}
 		num, unit = m[1], m[2]
 	}
-	x, err := strconv.ParseFloat(num, 64)
-	if err != nil || math.IsNaN(x) || math.IsInf(x, 0) {
-		return 0, fmt.Errorf("%w: %q is not a finite number", ErrBadReply, num)
-	}
-	f, err := unitFactor(unit, want)
+	shift, err := unitShift(unit, want)
 	if err != nil {
 		return 0, fmt.Errorf("%w: %q: %v", ErrBadReply, reply, err)
 	}
-	return x * f, nil
+	if !decimalNumber.MatchString(num) {
+		return 0, fmt.Errorf("%w: %q is not a finite number", ErrBadReply, num)
+	}
+	x, err := shiftDecimal(num, shift)
+	if err != nil || math.IsNaN(x) || math.IsInf(x, 0) {
+		return 0, fmt.Errorf("%w: %q is not a finite number", ErrBadReply, num)
+	}
+	return x, nil
 }
 
 // ParseCounts reads one count per channel. With a pattern, each channel's

@@ -145,7 +145,7 @@ func checkVerb(v string) error {
 }
 
 // IsZero says whether the template is absent.
-func (t Template) IsZero() bool { return len(t.parts) == 0 }
+func (t Template) IsZero() bool { return t.src == "" }
 
 // String is the template's source.
 func (t Template) String() string { return t.src }
@@ -214,6 +214,7 @@ func decodeTemplate(d *yamlnode.Decoder, n *yaml.Node, key string, allowed ...st
 	t, err := ParseTemplate(s, allowed...)
 	if err != nil {
 		d.Errorf(n, key, "%v", err)
+		return Template{src: s} // given but bad: not reported missing too
 	}
 	return t
 }
