@@ -31,6 +31,7 @@ func run(args []string) int {
 	seed := fs.Uint64("sim-seed", 1, "seed of the simulated bench's noise (same seed, same scan)")
 	speed := fs.Float64("sim-speed", 1, "run the simulated bench's motion, gates and settle times this many times faster than real time (1 to 1e6)")
 	instant := fs.Bool("sim-instant", false, "simulated instruments take no time at all (benchmarks)")
+	record := fs.String("record", "", "write every instrument transaction (time, instrument, sent, received, latency) as JSON lines to a new file in this directory")
 	autoResume := fs.Bool("auto-resume", false, "continue INTERRUPTED scans at start, from their first point not stored")
 	logLevel := fs.String("log-level", "info", "debug, info, warn or error")
 	fs.Usage = func() {
@@ -57,13 +58,17 @@ func run(args []string) int {
 		fmt.Fprintf(os.Stderr, "glissd: --sim-speed %v: allowed 1 to 1e6\n", *speed)
 		return 2
 	}
+	if *record != "" && *benchFile == "" {
+		fmt.Fprintln(os.Stderr, "glissd: --record needs --bench: the built-in simulated bench talks to no transport (serve it on virtual ports with `gliss sim ports` and load their bench file)")
+		return 2
+	}
 	log := slog.New(slog.NewTextHandler(os.Stderr, &slog.HandlerOptions{Level: level}))
 	slog.SetDefault(log)
 
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
 	d, err := daemon.Start(ctx, daemon.Config{
-		Listen: *listen, DataDir: *data, BenchFile: *benchFile, OpenBench: openBenchFile,
+		Listen: *listen, DataDir: *data, BenchFile: *benchFile, OpenBench: benchOpener(*record, log),
 		SimSeed: *seed, SimSpeed: *speed, SimInstant: *instant, AutoResume: *autoResume, Logger: log,
 	})
 	if err != nil {
