@@ -73,36 +73,24 @@ func (e *RangeError) Error() string {
 // Validate checks every field; the error names the field, the value and the
 // allowed range.
 func (p Params) Validate() error {
-	chk := func(field string, v, lo, hi float64, rng string) error {
-		if math.IsNaN(v) || math.IsInf(v, 0) || v < lo || v > hi {
-			return &RangeError{Field: field, Value: v, Range: rng}
-		}
-		return nil
-	}
-	type c struct {
-		field  string
-		v      float64
-		lo, hi float64
-		rng    string
-	}
-	for _, x := range []c{
-		{"FWHMPS", p.FWHMPS, MinFWHMPS, MaxFWHMPS, fmt.Sprintf("%g to %g ps", MinFWHMPS, MaxFWHMPS)},
-		{"GDDPS2", p.GDDPS2, -MaxAbsGDDPS2, MaxAbsGDDPS2, fmt.Sprintf("-%g to %g ps²", MaxAbsGDDPS2, MaxAbsGDDPS2)},
-		{"AreaPi", p.AreaPi, 0, MaxAreaPi, fmt.Sprintf("0 to %g (units of π)", MaxAreaPi)},
-		{"BindingMeV", p.BindingMeV, -MaxAbsMeV, MaxAbsMeV, fmt.Sprintf("-%g to %g meV", MaxAbsMeV, MaxAbsMeV)},
-		{"DetuningMeV", p.DetuningMeV, -MaxAbsMeV, MaxAbsMeV, fmt.Sprintf("-%g to %g meV", MaxAbsMeV, MaxAbsMeV)},
-		{"XLifetimePS", p.XLifetimePS, 0, MaxLifetimePS, fmt.Sprintf("0 (no decay) to %g ps", MaxLifetimePS)},
-		{"XXLifetimePS", p.XXLifetimePS, 0, MaxLifetimePS, fmt.Sprintf("0 (no decay) to %g ps", MaxLifetimePS)},
-	} {
-		if err := chk(x.field, x.v, x.lo, x.hi, x.rng); err != nil {
-			return err
-		}
-	}
-	if p.Tolerance != 0 {
-		if err := chk("Tolerance", p.Tolerance, MinTolerance, MaxTolerance,
-			fmt.Sprintf("0 (default %g) or %g to %g", DefaultTolerance, MinTolerance, MaxTolerance)); err != nil {
-			return err
-		}
+	bad := func(v, lo, hi float64) bool { return math.IsNaN(v) || math.IsInf(v, 0) || v < lo || v > hi }
+	switch {
+	case bad(p.FWHMPS, MinFWHMPS, MaxFWHMPS):
+		return &RangeError{"FWHMPS", p.FWHMPS, fmt.Sprintf("%g to %g ps", MinFWHMPS, MaxFWHMPS)}
+	case bad(p.GDDPS2, -MaxAbsGDDPS2, MaxAbsGDDPS2):
+		return &RangeError{"GDDPS2", p.GDDPS2, fmt.Sprintf("-%g to %g ps²", MaxAbsGDDPS2, MaxAbsGDDPS2)}
+	case bad(p.AreaPi, 0, MaxAreaPi):
+		return &RangeError{"AreaPi", p.AreaPi, fmt.Sprintf("0 to %g (units of π)", MaxAreaPi)}
+	case bad(p.BindingMeV, -MaxAbsMeV, MaxAbsMeV):
+		return &RangeError{"BindingMeV", p.BindingMeV, fmt.Sprintf("-%g to %g meV", MaxAbsMeV, MaxAbsMeV)}
+	case bad(p.DetuningMeV, -MaxAbsMeV, MaxAbsMeV):
+		return &RangeError{"DetuningMeV", p.DetuningMeV, fmt.Sprintf("-%g to %g meV", MaxAbsMeV, MaxAbsMeV)}
+	case bad(p.XLifetimePS, 0, MaxLifetimePS):
+		return &RangeError{"XLifetimePS", p.XLifetimePS, fmt.Sprintf("0 (no decay) to %g ps", MaxLifetimePS)}
+	case bad(p.XXLifetimePS, 0, MaxLifetimePS):
+		return &RangeError{"XXLifetimePS", p.XXLifetimePS, fmt.Sprintf("0 (no decay) to %g ps", MaxLifetimePS)}
+	case p.Tolerance != 0 && bad(p.Tolerance, MinTolerance, MaxTolerance):
+		return &RangeError{"Tolerance", p.Tolerance, fmt.Sprintf("0 (default %g) or %g to %g", DefaultTolerance, MinTolerance, MaxTolerance)}
 	}
 	return nil
 }

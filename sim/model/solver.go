@@ -6,16 +6,18 @@ import (
 	"math"
 )
 
-// The integrator is an embedded Runge–Kutta 5(4) pair (Dormand & Prince,
-// J. Comput. Appl. Math. 6, 19 (1980)) with first-same-as-last stages and a
-// proportional–integral step-size controller (Hairer, Nørsett & Wanner,
-// Solving Ordinary Differential Equations I, 2nd ed., §II.4), written for
-// this problem:
+// The integrator is the explicit Runge–Kutta method of order 8 of Dormand &
+// Prince with Hairer's embedded 5th/3rd-order error estimate (DOP853; Hairer,
+// Nørsett & Wanner, Solving Ordinary Differential Equations I, 2nd ed.,
+// §II.10) and its step-size controller, written for this problem:
 //
 //   - It works in the interaction picture of the diagonal part of H: the
 //     diagonal energies E_j + S_j·t integrate in closed form to the phases
 //     φ_j(t), so the right-hand side is proportional to Ω(t) (plus slow decay
 //     terms) and the steps grow long wherever the pulse is weak.
+//   - The time-dependent coefficients (Ω and the two phase factors) are
+//     computed once per stage time and shared between the stage that ends a
+//     step and the first stage of the next.
 //   - Without decay it integrates the state vector (6 reals); with decay the
 //     density matrix (9 reals) plus the two emitted-photon integrals γ·∫ρ dt as
 //     extra components, so the yields come with the same error control.
@@ -28,52 +30,17 @@ const (
 	// DefaultTolerance is the relative and absolute tolerance used when
 	// Params.Tolerance is 0. It gives populations and yields to 1e-6 or better
 	// (TestDefaultToleranceAccuracy).
-	DefaultTolerance = 1e-8
+	DefaultTolerance = 3e-9
 
 	maxSteps = 5_000_000
 )
 
-// Dormand–Prince 5(4) coefficients.
-const (
-	c2, c3, c4, c5 = 1.0 / 5, 3.0 / 10, 4.0 / 5, 8.0 / 9
-
-	a21 = 1.0 / 5
-	a31 = 3.0 / 40
-	a32 = 9.0 / 40
-	a41 = 44.0 / 45
-	a42 = -56.0 / 15
-	a43 = 32.0 / 9
-	a51 = 19372.0 / 6561
-	a52 = -25360.0 / 2187
-	a53 = 64448.0 / 6561
-	a54 = -212.0 / 729
-	a61 = 9017.0 / 3168
-	a62 = -355.0 / 33
-	a63 = 46732.0 / 5247
-	a64 = 49.0 / 176
-	a65 = -5103.0 / 18656
-	a71 = 35.0 / 384
-	a73 = 500.0 / 1113
-	a74 = 125.0 / 192
-	a75 = -2187.0 / 6784
-	a76 = 11.0 / 84
-
-	// e = b(5th order) − b(4th order)
-	e1 = 71.0 / 57600
-	e3 = -71.0 / 16695
-	e4 = 71.0 / 1920
-	e5 = -17253.0 / 339200
-	e6 = 22.0 / 525
-	e7 = -1.0 / 40
-)
-
-// Step controller constants (Hairer's DOPRI5 defaults).
+// Step controller constants (Hairer's DOP853 defaults, HNW I §II.10).
 const (
 	ctlSafe  = 0.9
-	ctlBeta  = 0.04
-	ctlExpo1 = 0.2 - ctlBeta*0.75
-	ctlFacc1 = 1 / 0.2 // largest shrink 5×
-	ctlFacc2 = 1 / 10.0
+	ctlExpo  = 1.0 / 8
+	ctlFacc1 = 1 / 0.333 // largest shrink
+	ctlFacc2 = 1 / 6.0   // largest growth
 )
 
 // ErrTooManySteps is returned when the solver needs more than its step budget.
@@ -93,7 +60,8 @@ type Solver struct {
 	k01h, k12h     float64 // k/2
 	g1, g2         float64 // γ1, γ2
 	d01, d12, d02  float64 // coherence decay rates
-	kbuf           [7][nMax]float64
+	k              [12][nMax]float64
+	rejected       bool
 	y, ynew, ytmp  [nMax]float64
 	steps, rejects int
 }
@@ -157,7 +125,7 @@ func (s *Solver) setup(l *Ladder) {
 	s.g1, s.g2 = l.DecayPerPS[0], l.DecayPerPS[1]
 	s.d01, s.d12, s.d02 = 0.5*s.g1, 0.5*(s.g1+s.g2), 0.5*s.g2
 	s.density = s.g1 != 0 || s.g2 != 0
-	s.steps, s.rejects = 0, 0
+	s.steps, s.rejects, s.rejected = 0, 0, false
 
 	psi := l.Initial
 	if psi == [3]complex128{} {
@@ -227,12 +195,22 @@ func (s *Solver) finish(t float64, r *LadderResult) {
 	r.Decayed = [2]float64{s.y[9], s.y[10]}
 }
 
-// rhs evaluates dy/dt at t.
-func (s *Solver) rhs(t float64, y, dy *[nMax]float64) {
+// coef holds the time-dependent coefficients of the right-hand side at one
+// time: the couplings w0 = k01·Ω/2, w1 = k12·Ω/2 and the phase factors
+// u1 = e^{iφ1} = cs + i·sn, v = e^{i(φ2−φ1)} = cv + i·sv.
+type coef struct{ w0, w1, cs, sn, cv, sv float64 }
+
+func (s *Solver) coefAt(t float64, c *coef) {
 	om := s.env.RabiAt(t)
-	w0, w1 := s.k01h*om, s.k12h*om
-	sn, cs := math.Sincos(s.e1*t + 0.5*s.s1*t*t)
-	sv, cv := math.Sincos(s.e21*t + 0.5*s.s21*t*t)
+	c.w0, c.w1 = s.k01h*om, s.k12h*om
+	c.sn, c.cs = math.Sincos(s.e1*t + 0.5*s.s1*t*t)
+	c.sv, c.cv = math.Sincos(s.e21*t + 0.5*s.s21*t*t)
+}
+
+// deriv evaluates dy/dt from the coefficients c at the same time.
+func (s *Solver) deriv(c *coef, y, dy *[nMax]float64) {
+	w0, w1 := c.w0, c.w1
+	cs, sn, cv, sv := c.cs, c.sn, c.cv, c.sv
 	if !s.density {
 		// dψ̃0 = i·w0·ψ̃1·ū1
 		// dψ̃1 = i·(w0·ψ̃0·u1 + w1·ψ̃2·v̄)
@@ -240,14 +218,11 @@ func (s *Solver) rhs(t float64, y, dy *[nMax]float64) {
 		ar, ai := y[0], y[1]
 		br, bi := y[2], y[3]
 		cr, ci := y[4], y[5]
-		// ψ̃1·ū1
 		xr, xi := br*cs+bi*sn, bi*cs-br*sn
 		dy[0], dy[1] = -w0*xi, w0*xr
-		// w0·ψ̃0·u1 + w1·ψ̃2·v̄
 		zr := w0*(ar*cs-ai*sn) + w1*(cr*cv+ci*sv)
 		zi := w0*(ai*cs+ar*sn) + w1*(ci*cv-cr*sv)
 		dy[2], dy[3] = -zi, zr
-		// ψ̃1·v
 		qr, qi := br*cv-bi*sv, bi*cv+br*sv
 		dy[4], dy[5] = -w1*qi, w1*qr
 		return
@@ -284,6 +259,12 @@ func (s *Solver) rhs(t float64, y, dy *[nMax]float64) {
 	dy[10] = s.g2 * p2
 }
 
+func (s *Solver) rhs(t float64, y, dy *[nMax]float64) {
+	var c coef
+	s.coefAt(t, &c)
+	s.deriv(&c, y, dy)
+}
+
 func (s *Solver) errNorm(y, dy *[nMax]float64, tol float64) float64 {
 	var sum float64
 	for i := 0; i < s.n; i++ {
@@ -293,7 +274,7 @@ func (s *Solver) errNorm(y, dy *[nMax]float64, tol float64) float64 {
 	return math.Sqrt(sum / float64(s.n))
 }
 
-// initialStep is Hairer's starting-step heuristic (HNW I, §II.4).
+// initialStep is Hairer's starting-step heuristic (HNW I, §II.4), order 8.
 func (s *Solver) initialStep(t float64, f0 *[nMax]float64, hmax, tol float64) float64 {
 	d0 := s.errNorm(&s.y, &s.y, tol)
 	d1 := s.errNorm(&s.y, f0, tol)
@@ -305,7 +286,7 @@ func (s *Solver) initialStep(t float64, f0 *[nMax]float64, hmax, tol float64) fl
 	for i := 0; i < s.n; i++ {
 		s.ytmp[i] = s.y[i] + h0*f0[i]
 	}
-	f1 := &s.kbuf[1]
+	f1 := &s.k[1]
 	s.rhs(t+h0, &s.ytmp, f1)
 	for i := 0; i < s.n; i++ {
 		s.ynew[i] = f1[i] - f0[i]
@@ -315,23 +296,35 @@ func (s *Solver) initialStep(t float64, f0 *[nMax]float64, hmax, tol float64) fl
 	if m := max(d1, d2); m <= 1e-15 {
 		h1 = max(1e-6, h0*1e-3)
 	} else {
-		h1 = math.Pow(0.01/m, 0.2)
+		h1 = math.Pow(0.01/m, 1.0/8)
 	}
 	return min(100*h0, h1, hmax)
 }
+
+// dopRows lists, for each stage i, the j < i with a_ij ≠ 0.
+var dopRows = func() (rows [12][]int) {
+	for i := range 12 {
+		for j := range i {
+			if dopA[i][j] != 0 {
+				rows[i] = append(rows[i], j)
+			}
+		}
+	}
+	return rows
+}()
 
 func (s *Solver) integrate(t0, t1, hmax, tol float64) error {
 	if hmax <= 0 || hmax > t1-t0 {
 		hmax = t1 - t0
 	}
 	n := s.n
-	k1, k2, k3, k4, k5, k6, k7 := &s.kbuf[0], &s.kbuf[1], &s.kbuf[2], &s.kbuf[3], &s.kbuf[4], &s.kbuf[5], &s.kbuf[6]
-	y, yn, yt := &s.y, &s.ynew, &s.ytmp
+	y, yn, yt, k := &s.y, &s.ynew, &s.ytmp, &s.k
 	t := t0
-	s.rhs(t, y, k1)
-	h := s.initialStep(t, k1, hmax, tol)
-	errOld := 1e-4
-	rejected := false
+	var cEnd coef // coefficients at the current t (first stage)
+	s.coefAt(t, &cEnd)
+	s.deriv(&cEnd, y, &k[0])
+	h := s.initialStep(t, &k[0], hmax, tol)
+	var c coef
 	for {
 		if s.steps+s.rejects > maxSteps {
 			return fmt.Errorf("%w: %d steps reached at t = %g ps of [%g, %g]", ErrTooManySteps, maxSteps, t, t0, t1)
@@ -341,64 +334,76 @@ func (s *Solver) integrate(t0, t1, hmax, tol float64) error {
 			h = t1 - t
 			last = true
 		}
-		for i := 0; i < n; i++ {
-			yt[i] = y[i] + h*a21*k1[i]
-		}
-		s.rhs(t+c2*h, yt, k2)
-		for i := 0; i < n; i++ {
-			yt[i] = y[i] + h*(a31*k1[i]+a32*k2[i])
-		}
-		s.rhs(t+c3*h, yt, k3)
-		for i := 0; i < n; i++ {
-			yt[i] = y[i] + h*(a41*k1[i]+a42*k2[i]+a43*k3[i])
-		}
-		s.rhs(t+c4*h, yt, k4)
-		for i := 0; i < n; i++ {
-			yt[i] = y[i] + h*(a51*k1[i]+a52*k2[i]+a53*k3[i]+a54*k4[i])
-		}
-		s.rhs(t+c5*h, yt, k5)
-		for i := 0; i < n; i++ {
-			yt[i] = y[i] + h*(a61*k1[i]+a62*k2[i]+a63*k3[i]+a64*k4[i]+a65*k5[i])
-		}
 		tn := t + h
 		if last {
 			tn = t1
 		}
-		s.rhs(tn, yt, k6)
-		for i := 0; i < n; i++ {
-			yn[i] = y[i] + h*(a71*k1[i]+a73*k3[i]+a74*k4[i]+a75*k5[i]+a76*k6[i])
+		for i := 1; i < 12; i++ {
+			row := &dopA[i]
+			for q := 0; q < n; q++ {
+				yt[q] = 0
+			}
+			for _, j := range dopRows[i] {
+				a, kj := h*row[j], &k[j]
+				for q := 0; q < n; q++ {
+					yt[q] += a * kj[q]
+				}
+			}
+			for q := 0; q < n; q++ {
+				yt[q] += y[q]
+			}
+			if i == 11 {
+				s.coefAt(tn, &cEnd)
+				s.deriv(&cEnd, yt, &k[i])
+			} else {
+				s.coefAt(t+dopC[i]*h, &c)
+				s.deriv(&c, yt, &k[i])
+			}
 		}
-		s.rhs(tn, yn, k7)
-		var sum float64
-		for i := 0; i < n; i++ {
-			e := h * (e1*k1[i] + e3*k3[i] + e4*k4[i] + e5*k5[i] + e6*k6[i] + e7*k7[i])
-			q := e / (tol + tol*max(math.Abs(y[i]), math.Abs(yn[i])))
-			sum += q * q
+		var e5, e3 float64
+		for q := 0; q < n; q++ {
+			var b, d5, d3 float64
+			for j := range 12 {
+				kj := k[j][q]
+				b += dopB[j] * kj
+				d5 += dopE5[j] * kj
+				d3 += dopE3[j] * kj
+			}
+			yn[q] = y[q] + h*b
+			sc := tol + tol*max(math.Abs(y[q]), math.Abs(yn[q]))
+			d5 /= sc
+			d3 /= sc
+			e5 += d5 * d5
+			e3 += d3 * d3
 		}
-		errv := math.Sqrt(sum / float64(n))
-		fac11 := math.Pow(errv, ctlExpo1)
+		var errv float64
+		if e5 != 0 || e3 != 0 {
+			errv = h * e5 / math.Sqrt((e5+0.01*e3)*float64(n))
+		}
+		fac11 := math.Pow(errv, ctlExpo)
+		fac := max(ctlFacc2, min(ctlFacc1, fac11/ctlSafe))
 		if errv <= 1 {
-			// accept; PI control of the next step
-			fac := fac11 / math.Pow(errOld, ctlBeta)
-			fac = max(ctlFacc2, min(ctlFacc1, fac/ctlSafe))
-			hnew := h / fac
-			errOld = max(errv, 1e-4)
 			s.steps++
 			t = tn
 			*y = *yn
-			k1, k7 = k7, k1
+			// first stage of the next step: f(t+h, y_new), sharing the
+			// coefficients of the last stage
+			s.deriv(&cEnd, y, &k[0])
 			if last {
 				return nil
 			}
-			if rejected {
+			hnew := h / fac
+			if s.rejected {
 				hnew = min(hnew, h)
 			}
-			rejected = false
+			s.rejected = false
 			h = min(hnew, hmax)
 		} else {
 			s.rejects++
-			rejected = true
+			s.rejected = true
 			h /= min(ctlFacc1, fac11/ctlSafe)
+			// k[0] and cEnd must stay those of t: recompute cEnd
+			s.coefAt(t, &cEnd)
 			if t+h == t {
 				return fmt.Errorf("solver: step size underflow at t = %g ps", t)
 			}

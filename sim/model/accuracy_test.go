@@ -1,0 +1,64 @@
+package model
+
+import (
+	"math"
+	"math/rand/v2"
+	"testing"
+)
+
+// TestDefaultToleranceAccuracy: the default tolerance gives populations and
+// yields within 1e-6 of a run at tolerance 1e-12, over random points of the
+// demo dot's range (areas to 14π, GDD ±30 ps², detunings ±1 meV, with and
+// without decay).
+func TestDefaultToleranceAccuracy(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 11))
+	s := NewSolver()
+	var worst float64
+	var worstP Params
+	n := 150
+	if testing.Short() {
+		n = 30
+	}
+	for i := range n {
+		p := DemoParams()
+		p.FWHMPS = 1.5 + 3*rng.Float64()
+		p.GDDPS2 = -30 + 60*rng.Float64()
+		p.AreaPi = 14 * rng.Float64()
+		p.DetuningMeV = -1 + 2*rng.Float64()
+		if i%3 == 0 {
+			p.XLifetimePS, p.XXLifetimePS = 0, 0
+		}
+		r, err := s.Solve(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		p.Tolerance = 1e-12
+		ref, err := s.Solve(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, d := range []float64{r.G - ref.G, r.X - ref.X, r.XX - ref.XX, r.NX - ref.NX, r.NXX - ref.NXX} {
+			if math.Abs(d) > worst {
+				worst, worstP = math.Abs(d), p
+			}
+		}
+	}
+	t.Logf("largest |default − tol 1e-12| = %.2g at %+v", worst, worstP)
+	if worst > 1e-6 {
+		t.Errorf("default tolerance: error %.2g > 1e-6 at %+v", worst, worstP)
+	}
+}
+
+// TestSolveAllocs: a solve allocates nothing (the step loop included).
+func TestSolveAllocs(t *testing.T) {
+	s := NewSolver()
+	p := DemoParams()
+	p.GDDPS2, p.AreaPi = 12, 6
+	if a := testing.AllocsPerRun(20, func() {
+		if _, err := s.Solve(p); err != nil {
+			t.Fatal(err)
+		}
+	}); a != 0 {
+		t.Errorf("Solve allocates %.1f times per call, want 0", a)
+	}
+}
