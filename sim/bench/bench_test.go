@@ -488,7 +488,9 @@ func mustAngle(t *testing.T, uw float64) float64 {
 }
 
 // Laser power noise held for a gate makes the counts super-Poissonian where
-// the yield depends on the power: variance ≈ μ + (dμ/dP · σ_P)².
+// the yield depends on the power: variance ≈ μ + (dμ/dP · σ_P)² (law of total
+// variance with first-order propagation of the power noise; common
+// practice, no published source).
 func TestLaserNoiseBroadensCounts(t *testing.T) {
 	ctx := context.Background()
 	const sigmaRel = 0.05

@@ -61,8 +61,22 @@ func (c *Counter) Count(ctx context.Context, gate time.Duration) ([]uint64, erro
 	st := c.st
 	start := st.now()
 	sn := st.snap()
-	t := st.truth
 
+	counts, err := c.draw(sn, gate)
+	if err != nil {
+		return nil, fmt.Errorf("%s %q: %s: %w", c.kind, c.name, op, err)
+	}
+	if err := st.sleepUntil(ctx, start.Add(st.wall(gate.Seconds()))); err != nil {
+		return nil, fmt.Errorf("%s %q: %s: %w", c.kind, c.name, op, err)
+	}
+	return counts, nil
+}
+
+// draw computes one gate's counts at the optical state sn: the gate's laser
+// noise, then the model's yields, then Poisson counts, all from the
+// counter's own stream in that order.
+func (c *Counter) draw(sn snapshot, gate time.Duration) ([]uint64, error) {
+	t := c.st.truth
 	c.rngMu.Lock()
 	defer c.rngMu.Unlock()
 	noise := 1.0
@@ -71,17 +85,13 @@ func (c *Counter) Count(ctx context.Context, gate time.Duration) ([]uint64, erro
 	}
 	p, err := t.pointAt(sn, noise)
 	if err != nil {
-		return nil, fmt.Errorf("%s %q: %s: %w", c.kind, c.name, op, err)
+		return nil, err
 	}
 	y, err := c.yields(p)
 	if err != nil {
-		return nil, fmt.Errorf("%s %q: %s: %w", c.kind, c.name, op, err)
+		return nil, err
 	}
-	counts := t.chain.Counts(c.rng, y[:], gate, make([]uint64, 0, 2))
-	if err := st.sleepUntil(ctx, start.Add(st.wall(gate.Seconds()))); err != nil {
-		return nil, fmt.Errorf("%s %q: %s: %w", c.kind, c.name, op, err)
-	}
-	return counts, nil
+	return t.chain.Counts(c.rng, y[:], gate, make([]uint64, 0, 2)), nil
 }
 
 // pointAt is the dot model's point for an optical state, with the laser
