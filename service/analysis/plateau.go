@@ -111,8 +111,9 @@ type PlateauReport struct {
 // Plateaus analyses a biexciton (XX) power × chirp map.
 //
 // For each chirp the counts over power are smoothed with the binomial
-// weights (1, 2, 1)/4 over neighbouring power indices (missing points
-// skipped, end points from the available neighbours). The first maximum is
+// weights (1, 2, 1)/4 over neighbouring power indices (missing neighbours
+// skipped, end points from the available neighbours; a missing point stays
+// missing and ends a plateau range). The first maximum is
 // the first smoothed value not lower than its neighbours and at least half
 // the curve's largest (low-power noise bumps do not count). The plateau is
 // the largest smoothed value: at zero chirp that is usually the π-pulse peak
@@ -172,10 +173,15 @@ func Plateaus(m PowerChirpMap, opt PlateauOptions) (PlateauReport, error) {
 	return rep, nil
 }
 
-// smooth applies (1, 2, 1)/4 weights, skipping NaN.
+// smooth applies (1, 2, 1)/4 weights, skipping NaN neighbours; a missing
+// point stays missing.
 func smooth(y []float64) []float64 {
 	out := make([]float64, len(y))
 	for j := range y {
+		if math.IsNaN(y[j]) {
+			out[j] = math.NaN()
+			continue
+		}
 		var s, w float64
 		for d, wt := range [3]float64{1, 2, 1} {
 			k := j + d - 1
