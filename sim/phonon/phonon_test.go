@@ -374,3 +374,21 @@ func TestSecularFastPath(t *testing.T) {
 }
 
 func cmplxAbs(z complex128) float64 { return math.Hypot(real(z), imag(z)) }
+
+// TestNoAllocationPerStep: a point allocates a fixed handful of objects (the
+// problem's setup), not per step: a point with ~3× the steps allocates the
+// same number.
+func TestNoAllocationPerStep(t *testing.T) {
+	s := NewSolver()
+	b := DemoBath()
+	short, long := demoAt(2, 3), demoAt(25, 12)
+	as := testing.AllocsPerRun(3, func() { s.Solve(short, &b) })
+	stepsShort := s.steps
+	al := testing.AllocsPerRun(3, func() { s.Solve(long, &b) })
+	if s.steps < 2*stepsShort {
+		t.Fatalf("steps %d and %d: the long point is not long", stepsShort, s.steps)
+	}
+	if al != as || al > 10 {
+		t.Errorf("allocations per point: %v (%d steps) and %v (%d steps), want equal and ≤ 10", as, stepsShort, al, s.steps)
+	}
+}
