@@ -94,6 +94,10 @@ func TestOptionsRejected(t *testing.T) {
 		{PowerNoiseRel: math.NaN()}, {MeterNoiseRel: 2},
 		{CouplingUWPerPi2: -1},
 		{Chain: detection.Chain{RepRateHz: 80e6, Efficiency: []float64{0.01}}},
+		{Chain: detection.Chain{RepRateHz: 80e6, Efficiency: []float64{0.01, 1.5}}},
+		{Dot: model.Params{FWHMPS: 0.001, BindingMeV: 4, AreaPi: 1}},
+		{CouplingUWPerPi2: 0.05}, // 200 µW → 63π, beyond the model
+		{Stretcher: calib.Stretcher{LinesPerMM: 1800, WavelengthNM: 785, Littrow: true, Passes: 400, Lever: 2, ZeroMM: 600}}, // ±2660 ps²
 	} {
 		if b, err := New(o); err == nil {
 			b.Close()

@@ -124,8 +124,13 @@ func (o Options) resolve() (truth, float64, error) {
 	if t.chain.RepRateHz == 0 && len(t.chain.Efficiency) == 0 && len(t.chain.DarkHz) == 0 {
 		t.chain = detection.Demo()
 	}
-	if len(t.chain.Efficiency) != 2 {
-		return truth{}, 0, fmt.Errorf("Options.Chain: %d channel efficiencies, want 2 (x, xx)", len(t.chain.Efficiency))
+	if err := checkChain(t.chain); err != nil {
+		return truth{}, 0, err
+	}
+	dot := t.dot
+	dot.GDDPS2, dot.AreaPi, dot.DetuningMeV = 0, 0, 0 // set by the bench
+	if err := dot.Validate(); err != nil {
+		return truth{}, 0, fmt.Errorf("Options.Dot: %w", err)
 	}
 	if t.stretcher == (calib.Stretcher{}) {
 		t.stretcher = DemoStretcher()
@@ -145,6 +150,13 @@ func (o Options) resolve() (truth, float64, error) {
 	case !(t.p1UW > 0) || math.IsInf(t.p1UW, 0):
 		return truth{}, 0, fmt.Errorf("Options.CouplingUWPerPi2 %g: must be > 0 µW (0 means %g)", o.CouplingUWPerPi2, defaultCouplingUW)
 	}
+	// The whole reachable range must be a valid model point: GDD over the
+	// travel, and the area at full power with 4σ of laser noise.
+	for _, mm := range []float64{stageMinMM, stageMaxMM} {
+		if g, _ := t.stretcher.GDDPS2(mm); math.Abs(g) > model.MaxAbsGDDPS2 {
+			return truth{}, 0, fmt.Errorf("Options.Stretcher: GDD %g ps² at %g mm of travel, beyond the model's ±%g ps²", g, mm, model.MaxAbsGDDPS2)
+		}
+	}
 	var err error
 	if t.powerNoiseRel, err = resolveNoise("PowerNoiseRel", o.PowerNoiseRel, defaultPowerNoise); err != nil {
 		return truth{}, 0, err
@@ -152,7 +164,33 @@ func (o Options) resolve() (truth, float64, error) {
 	if t.meterNoiseRel, err = resolveNoise("MeterNoiseRel", o.MeterNoiseRel, defaultMeterNoise); err != nil {
 		return truth{}, 0, err
 	}
+	if a := t.areaPi(t.malus.PMaxUW * (1 + 4*t.powerNoiseRel)); a > model.MaxAreaPi {
+		return truth{}, 0, fmt.Errorf("Options.CouplingUWPerPi2 %g µW: area %.3gπ at %g µW (+4σ laser noise), beyond the model's %gπ", t.p1UW, a, t.malus.PMaxUW, model.MaxAreaPi)
+	}
 	return t, speed, nil
+}
+
+func checkChain(c detection.Chain) error {
+	if len(c.Efficiency) != 2 || len(c.DarkHz) > 2 {
+		return fmt.Errorf("Options.Chain: %d efficiencies and %d dark rates, want 2 channels (x, xx)", len(c.Efficiency), len(c.DarkHz))
+	}
+	if !(c.RepRateHz > 0) || math.IsInf(c.RepRateHz, 0) {
+		return fmt.Errorf("Options.Chain.RepRateHz %g: must be > 0", c.RepRateHz)
+	}
+	for i, e := range c.Efficiency {
+		if !(e >= 0 && e <= 1) {
+			return fmt.Errorf("Options.Chain.Efficiency[%d] %g: outside [0, 1]", i, e)
+		}
+	}
+	for i, d := range c.DarkHz {
+		if !(d >= 0) || math.IsInf(d, 0) {
+			return fmt.Errorf("Options.Chain.DarkHz[%d] %g: must be ≥ 0 and finite", i, d)
+		}
+	}
+	if !(c.DeadTimeNS >= 0) || math.IsInf(c.DeadTimeNS, 0) {
+		return fmt.Errorf("Options.Chain.DeadTimeNS %g: must be ≥ 0 and finite", c.DeadTimeNS)
+	}
+	return nil
 }
 
 // state is the one optical state that all instruments of a simulated bench
