@@ -6,6 +6,8 @@ import (
 	"fmt"
 	"slices"
 	"strings"
+	"sync"
+	"sync/atomic"
 	"testing"
 	"time"
 
@@ -493,4 +495,110 @@ func TestMain(m *testing.M) {
 		return
 	}
 	m.Run()
+}
+
+// The queue is bounded: with the writer held up, AppendPoint blocks once the
+// queue is full and gives up when its context ends, without calling done.
+func TestQueueFullHonoursContext(t *testing.T) {
+	entered := make(chan struct{}, 16)
+	release := make(chan struct{})
+	var hold atomic.Bool
+	s, _ := openTest(t, Options{MaxBatch: 1, beforeCommit: func() error {
+		if hold.Load() {
+			entered <- struct{}{}
+			<-release
+		}
+		return nil
+	}})
+	if err := s.CreateScan(ctx, testScan("01Q", "queue", glissv1.ScanState_SCAN_STATE_RUNNING, t0)); err != nil {
+		t.Fatal(err)
+	}
+	hold.Store(true)
+	r := newResults()
+	if err := s.AppendPoint(ctx, testPoint("01Q", 0), r.done(0)); err != nil {
+		t.Fatal(err)
+	}
+	<-entered // the writer is inside the commit of point 0
+	capacity := cap(s.queue)
+	for seq := uint64(1); seq <= uint64(capacity); seq++ {
+		if err := s.AppendPoint(ctx, testPoint("01Q", seq), r.done(seq)); err != nil {
+			t.Fatal(err)
+		}
+	}
+	short, cancel := context.WithTimeout(ctx, 50*time.Millisecond)
+	defer cancel()
+	called := false
+	err := s.AppendPoint(short, testPoint("01Q", uint64(capacity)+1), func(error) { called = true })
+	if !errors.Is(err, context.DeadlineExceeded) {
+		t.Fatalf("append to a full queue: err = %v, want DeadlineExceeded", err)
+	}
+	hold.Store(false)
+	close(release)
+	r.wg.Wait()
+	for seq := uint64(0); seq <= uint64(capacity); seq++ {
+		if err, _ := r.get(seq); err != nil {
+			t.Fatalf("point %d: %v", seq, err)
+		}
+	}
+	if err := s.Sync(ctx); err != nil {
+		t.Fatal(err)
+	}
+	if called {
+		t.Fatal("done called for the point that was never queued")
+	}
+	if n, _ := s.PointCount("01Q"); n != uint64(capacity)+1 {
+		t.Fatalf("%d points stored, want %d", n, capacity+1)
+	}
+}
+
+// Several scans written at once by their own goroutines keep their order.
+func TestConcurrentScans(t *testing.T) {
+	s, _ := openTest(t, Options{MaxBatch: 64})
+	const scans, n = 4, 500
+	var wg sync.WaitGroup
+	for k := 0; k < scans; k++ {
+		id := fmt.Sprintf("01R%d", k)
+		if err := s.CreateScan(ctx, testScan(id, "parallel", glissv1.ScanState_SCAN_STATE_RUNNING, t0.Add(time.Duration(k)*time.Second))); err != nil {
+			t.Fatal(err)
+		}
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			var failed atomic.Int64
+			for seq := uint64(0); seq < n; seq++ {
+				if err := s.AppendPoint(ctx, testPoint(id, seq), func(err error) {
+					if err != nil {
+						failed.Add(1)
+					}
+				}); err != nil {
+					t.Error(err)
+					return
+				}
+				if seq%100 == 0 {
+					if _, err := s.GetScan(id); err != nil {
+						t.Error(err)
+					}
+				}
+			}
+			if err := s.Sync(ctx); err != nil || failed.Load() > 0 {
+				t.Errorf("scan %s: sync %v, %d failed", id, err, failed.Load())
+			}
+		}()
+	}
+	wg.Wait()
+	for k := 0; k < scans; k++ {
+		id := fmt.Sprintf("01R%d", k)
+		pts := readAll(t, s, id, 0)
+		if len(pts) != n {
+			t.Fatalf("scan %s: %d points, want %d", id, len(pts), n)
+		}
+		for i, p := range pts {
+			if !proto.Equal(p, testPoint(id, uint64(i))) {
+				t.Fatalf("scan %s point %d changed", id, i)
+			}
+		}
+	}
+	if err := s.Check(); err != nil {
+		t.Fatal(err)
+	}
 }
