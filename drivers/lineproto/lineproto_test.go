@@ -31,6 +31,7 @@ type fakeStage struct {
 	garblePos   int  // next n POS? replies are garbled
 	stall       bool // moves stop half-way
 	silent      bool // no reply to anything
+	refuse      bool // moves are refused through the error queue and not carried out
 	idn         string
 	errQueue    []string
 }
@@ -75,6 +76,10 @@ func (f *fakeStage) Exchange(ctx context.Context, tx transport.Tx) (string, erro
 			return "", transport.ErrTimeout
 		}
 		v, err := strconv.ParseFloat(arg, 64)
+		if f.refuse {
+			f.errQueue = append(f.errQueue, `-222,"Data out of range"`)
+			return "", nil
+		}
 		if err != nil {
 			f.errQueue = append(f.errQueue, `-104,"Data type error"`)
 			return "ERR bad number", nil
@@ -312,11 +317,16 @@ commands:
 		}
 	}
 	dev.mu.Lock()
-	dev.errQueue = []string{`-222,"Data out of range"`}
+	dev.refuse = true
 	dev.mu.Unlock()
+	before := dev.count("POS:TARG")
 	err := in.MoveToMM(ctx, 30)
-	if !errors.Is(err, ErrRefused) || !strings.Contains(err.Error(), "Data out of range") {
-		t.Fatalf("error queue entry: %v; want ErrRefused with the instrument's message", err)
+	if !errors.Is(err, ErrRefused) || !errors.Is(err, drivers.ErrUnavailable) || !strings.Contains(err.Error(), "Data out of range") {
+		t.Fatalf("refused move: %v; want ErrRefused and ErrUnavailable with the instrument's message", err)
+	}
+	// retries: 3 (the default) → at most 4 sends, each after a position check.
+	if n := dev.count("POS:TARG") - before; n != 4 {
+		t.Fatalf("refused move sent %d times, want 1 + 3 retries", n)
 	}
 }
 

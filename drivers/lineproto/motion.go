@@ -2,7 +2,6 @@ package lineproto
 
 import (
 	"context"
-	"errors"
 	"fmt"
 	"math"
 	"time"
@@ -169,14 +168,15 @@ func (in *Instrument) moveTo(ctx context.Context, ax axis, target float64) error
 		if err == nil {
 			break
 		}
-		if ctx.Err() != nil || errors.Is(err, ErrRefused) {
+		if ctx.Err() != nil {
 			return err
 		}
 		if attempt >= in.s.Retries {
 			return fmt.Errorf("%w: %w", drivers.ErrUnavailable, err)
 		}
-		// The command may or may not have been taken: look before sending
-		// it again.
+		// The command may or may not have been taken (a lost or garbled
+		// acknowledgement, a refusal by a transient fault): look before
+		// sending it again.
 		in.log.Warn("move command failed; checking the position before any resend", "instrument", in.name, "err", err)
 		if err := sleep(ctx, in.s.Backoff<<attempt); err != nil {
 			return in.wrap(what, err)

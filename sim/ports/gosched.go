@@ -1,0 +1,5 @@
+package ports
+
+import "runtime"
+
+func runtimeGosched() { runtime.Gosched() }
