@@ -596,3 +596,40 @@ func TestPowerMeterReadsTruePower(t *testing.T) {
 
 // otherMalus is a true attenuator law that differs from the nominal one.
 func otherMalus() calib.Malus { return calib.Malus{PMinUW: 0.08, PMaxUW: 180, Theta0Deg: 3} }
+
+// Commanding the position an axis already arrived at moves nothing (no new
+// repeatability draw, no laser relock); any other target moves again.
+func TestSameTargetDoesNotMove(t *testing.T) {
+	ctx := context.Background()
+	b := newBench(t, Options{Seed: 6, Speed: 1})
+	if err := b.Laser().SetDetuningMeV(ctx, 0.01); err != nil { // 5 ms ramp + 50 ms relock
+		t.Fatal(err)
+	}
+	d1, _ := b.Laser().DetuningMeV(ctx)
+	start := time.Now()
+	if err := b.Laser().SetDetuningMeV(ctx, 0.01); err != nil {
+		t.Fatal(err)
+	}
+	if el := time.Since(start); el > 40*time.Millisecond {
+		t.Errorf("re-sending the same detuning took %v (a relock is 50 ms)", el)
+	}
+	if d2, _ := b.Laser().DetuningMeV(ctx); d2 != d1 {
+		t.Errorf("same detuning re-sent: %g then %g", d1, d2)
+	}
+	bi := newBench(t, Options{Seed: 6, Instant: true})
+	if err := bi.Stage().MoveToMM(ctx, 300); err != nil {
+		t.Fatal(err)
+	}
+	p1, _ := bi.Stage().PositionMM(ctx)
+	if err := bi.Stage().MoveToMM(ctx, 300); err != nil {
+		t.Fatal(err)
+	}
+	p2, _ := bi.Stage().PositionMM(ctx)
+	if err := bi.Stage().MoveToMM(ctx, 300.0001); err != nil {
+		t.Fatal(err)
+	}
+	p3, _ := bi.Stage().PositionMM(ctx)
+	if p2 != p1 || p3 == p1 {
+		t.Errorf("positions %g, %g (same target), %g (new target)", p1, p2, p3)
+	}
+}

@@ -120,10 +120,6 @@ func (b *base) moveAxis(ctx context.Context, sp axisSpec, target float64) error 
 		return err
 	}
 	st := b.st
-	noise := 0.0
-	if sp.repeat > 0 {
-		noise = b.normal() * sp.repeat
-	}
 	st.mu.Lock()
 	ax := sp.pick(st)
 	if ax.mv != nil {
@@ -131,6 +127,17 @@ func (b *base) moveAxis(ctx context.Context, sp axisSpec, target float64) error 
 		st.mu.Unlock()
 		return fmt.Errorf("%s %q: %s: busy, a move to %s %s is in progress", b.kind, b.name, op, sp.f(inFlight), sp.unit)
 	}
+	if ax.hasCmd && ax.cmd == target && stuck == nil {
+		// Already there: the controller sees no following error and does
+		// not move (no new repeatability draw, no relock).
+		st.mu.Unlock()
+		return nil
+	}
+	noise := 0.0
+	if sp.repeat > 0 {
+		noise = b.normal() * sp.repeat // lock order: st.mu, then rngMu
+	}
+	ax.cmd, ax.hasCmd = target, stuck == nil
 	from := ax.pos
 	to := math.Min(sp.max, math.Max(sp.min, target+noise))
 	if stuck != nil {
@@ -149,6 +156,7 @@ func (b *base) moveAxis(ctx context.Context, sp axisSpec, target float64) error 
 		if err != nil {
 			ax.pos = ax.at(st.now(), st.speed)
 			ax.mv = nil
+			ax.hasCmd = false // stopped short of the target
 			at := ax.pos
 			st.mu.Unlock()
 			st.log.Debug("move cancelled", "instrument", b.name, "at", at)

@@ -78,6 +78,10 @@ type axis struct {
 	prof profile
 	pos  float64 // position when still; the start of mv when moving
 	mv   *motion // nil when still
+	// cmd is the last target the axis arrived at (hasCmd false before the
+	// first move and after a stopped or stalled one).
+	cmd    float64
+	hasCmd bool
 }
 
 // at is the axis position at wall time now, with speed the time scale
