@@ -55,8 +55,13 @@ func jacobi(a [3][3]float64, e *[3]float64, v *[3][3]float64) {
 // accumulating it into the columns of v. r is the third index.
 func rotate(a, v *[3][3]float64, p, q int) {
 	apq := a[p][q]
-	if apq == 0 {
-		return
+	if math.Abs(apq) <= 1e-18*(math.Abs(a[p][p])+math.Abs(a[q][q])) {
+		// Already diagonal to rounding in this plane (or exactly zero). The
+		// skip level is below the sweep's stopping level (1e-17 overall), so a
+		// sweep of skips always ends the iteration.
+		if apq == 0 || a[p][p] != 0 || a[q][q] != 0 {
+			return
+		}
 	}
 	r := 3 - p - q
 	theta := (a[q][q] - a[p][p]) / (2 * apq)

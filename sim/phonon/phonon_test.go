@@ -61,7 +61,7 @@ func TestCoherentPartMatchesModel(t *testing.T) {
 			t.Fatal(err)
 		}
 		l := p.Ladder()
-		st, err := s.solveLadder(&l, nil, model.DefaultTolerance)
+		st, err := s.solveLadder(&l, nil, DefaultTolerance)
 		if err != nil {
 			t.Fatal(err)
 		}
