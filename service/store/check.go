@@ -35,12 +35,15 @@ func (s *Store) check() error {
 		return len(errs) < maxCheckErrors
 	}
 	err := s.db.View(func(tx *bolt.Tx) error {
-		for err := range tx.Check() {
-			if !add(fmt.Errorf("bbolt: %w", err)) {
-				return nil
+		full := false
+		for err := range tx.Check() { // drained to the end: the checker runs on this tx
+			if !full {
+				full = !add(fmt.Errorf("bbolt: %w", err))
 			}
 		}
-		checkLayout(tx, add)
+		if !full {
+			checkLayout(tx, add)
+		}
 		return nil
 	})
 	if err != nil {

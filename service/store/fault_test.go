@@ -205,6 +205,9 @@ func TestCorruptRecords(t *testing.T) {
 		t.Fatal(err)
 	}
 	appendRange(t, s, "01K", 0, 10)
+	if err := s.CreateScan(ctx, testScan("01L", "record damaged", glissv1.ScanState_SCAN_STATE_QUEUED, t0)); err != nil {
+		t.Fatal(err)
+	}
 	if err := s.Close(); err != nil {
 		t.Fatal(err)
 	}
@@ -222,7 +225,10 @@ func TestCorruptRecords(t *testing.T) {
 		if err := pb.Put(putSeqKey(k[:], 6), other); err != nil { // the record of another seq
 			return err
 		}
-		return pb.Delete(putSeqKey(k[:], 8)) // a gap
+		if err := pb.Delete(putSeqKey(k[:], 8)); err != nil { // a gap
+			return err
+		}
+		return tx.Bucket(bucketScans).Put([]byte("01L"), []byte("\x12\x05trunc")) // a cut record
 	})
 	if err != nil {
 		t.Fatal(err)
@@ -235,7 +241,7 @@ func TestCorruptRecords(t *testing.T) {
 	}
 	defer s2.Close()
 	err = s2.Check()
-	for _, want := range []string{`scan "01K": point 3: corrupt record`, `scan "01K": point 6: corrupt record: holds scan "01K" point 4`, `point 9 follows 8 points`} {
+	for _, want := range []string{`scan "01K": point 3: corrupt record`, `scan "01K": point 6: corrupt record: holds scan "01K" point 4`, `point 9 follows 8 points`, `scan "01L": corrupt record`} {
 		if err == nil || !strings.Contains(err.Error(), want) {
 			t.Errorf("Check: %v\nwant a problem %q", err, want)
 		}
@@ -243,5 +249,11 @@ func TestCorruptRecords(t *testing.T) {
 	err = s2.ReadPoints(ctx, "01K", 0, func(*glissv1.Point) error { return nil })
 	if err == nil || !strings.Contains(err.Error(), `scan "01K": point 3: corrupt record`) {
 		t.Fatalf("ReadPoints over a corrupt point: %v", err)
+	}
+	if _, err := s2.GetScan("01L"); err == nil || !strings.Contains(err.Error(), `scan "01L": corrupt record`) {
+		t.Fatalf("GetScan of a corrupt record: %v", err)
+	}
+	if _, _, err := s2.ListScans(ListFilter{}); err == nil || !strings.Contains(err.Error(), `scan "01L": corrupt record`) {
+		t.Fatalf("ListScans over a corrupt record: %v", err)
 	}
 }
