@@ -141,9 +141,10 @@ func Linspace(from, to float64, n int) []float64 {
 		out[0] = from
 		return out
 	}
-	step := (to - from) / float64(n-1)
+	// a convex combination: no overflow for any finite ends
 	for i := range out {
-		out[i] = from + float64(i)*step
+		f := float64(i) / float64(n-1)
+		out[i] = from*(1-f) + to*f
 	}
 	out[n-1] = to
 	return out
