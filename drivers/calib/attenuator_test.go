@@ -28,7 +28,7 @@ type attenuatorGolden struct {
 	} `json:"nd_wheel"`
 }
 
-func readJSON(t *testing.T, path string, v any) {
+func readJSON(t testing.TB, path string, v any) {
 	t.Helper()
 	b, err := os.ReadFile(path)
 	if err != nil {
