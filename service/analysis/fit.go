@@ -2,6 +2,7 @@ package analysis
 
 import (
 	"context"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"math"
@@ -104,6 +105,24 @@ func TheoryMap(ctx context.Context, base model.Params, ch Channel, gddPS2, power
 	return out, nil
 }
 
+// Grid is a map of values [chirp][power]; NaN (missing) is written to
+// JSON as null.
+type Grid [][]float64
+
+// MarshalJSON writes the rows with null for NaN.
+func (g Grid) MarshalJSON() ([]byte, error) {
+	rows := make([][]*float64, len(g))
+	for i, r := range g {
+		rows[i] = make([]*float64, len(r))
+		for j := range r {
+			if !math.IsNaN(r[j]) && !math.IsInf(r[j], 0) {
+				rows[i][j] = &r[j]
+			}
+		}
+	}
+	return json.Marshal(rows)
+}
+
 // MapFitOptions configures FitMap.
 type MapFitOptions struct {
 	// Base holds what is not fitted: FWHMPS, the lifetimes, Tolerance
@@ -121,28 +140,28 @@ type MapFitOptions struct {
 
 // MapFit is the result of FitMap.
 type MapFit struct {
-	Params FitParams
+	Params FitParams `json:"params"`
 	// Sigma are 1σ uncertainties: the covariance (JᵀWJ)⁻¹ at the optimum,
 	// scaled by the reduced χ².
-	Sigma FitParams
+	Sigma FitParams `json:"sigma"`
 	// Cov is the 5×5 covariance, row-major, in the order of FitParamNames.
-	Cov []float64
+	Cov []float64 `json:"cov"`
 	// ChiSq with Poisson weights σ² = max(counts, 1); DoF = points − 5.
-	ChiSq    float64
-	DoF      int
-	RedChiSq float64
+	ChiSq    float64 `json:"chi_sq"`
+	DoF      int     `json:"dof"`
+	RedChiSq float64 `json:"red_chi_sq"`
 	// ChiSqDrop is the decrease of χ² that one more Gauss–Newton step
 	// predicts at the result (< 0.01: converged far inside 1σ).
-	ChiSqDrop float64
+	ChiSqDrop float64 `json:"chi_sq_drop"`
 	// Model is the fitted counts map; Residuals = data − model (NaN where
-	// the data are missing), in the axes of the input map.
-	Model     [][]float64
-	Residuals [][]float64
+	// the data are missing, JSON null), in the axes of the input map.
+	Model     Grid `json:"model"`
+	Residuals Grid `json:"residuals"`
 	// ModelMaps counts the model maps computed; Iterations the minimiser's
 	// major iterations; Status its stopping reason.
-	ModelMaps  int
-	Iterations int
-	Status     string
+	ModelMaps  int    `json:"model_maps"`
+	Iterations int    `json:"iterations"`
+	Status     string `json:"status"`
 }
 
 // FitMap fits the dot model to a whole measured power × chirp map by

@@ -2,8 +2,10 @@ package analysis
 
 import (
 	"context"
+	"encoding/json"
 	"math"
 	"math/rand/v2"
+	"strings"
 	"testing"
 
 	"gonum.org/v1/gonum/stat/distuv"
@@ -160,6 +162,12 @@ func TestFitMapRecoversParameters(t *testing.T) {
 	t.Logf("mirrored start: Δ = %g ± %g meV, χ² %.3f (vs %.3f)", mir.Params.DetuningMeV, mir.Sigma.DetuningMeV, mir.ChiSq, fit.ChiSq)
 	if math.Abs(mir.Params.DetuningMeV+fit.Params.DetuningMeV) > 3*fit.Sigma.DetuningMeV || math.Abs(mir.ChiSq-fit.ChiSq) > 1 {
 		t.Errorf("mirrored fit: Δ %g, χ² %g; want ≈ %g and ≈ %g", mir.Params.DetuningMeV, mir.ChiSq, -fit.Params.DetuningMeV, fit.ChiSq)
+	}
+	// The result encodes as JSON, missing points as null.
+	m2 := fit
+	m2.Residuals = Grid{{1, math.NaN()}}
+	if b, err := json.Marshal(m2); err != nil || !strings.Contains(string(b), `"residuals":[[1,null]]`) {
+		t.Errorf("json: %v", err)
 	}
 	// The residual map is data − model.
 	for i := range m.Counts {

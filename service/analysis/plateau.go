@@ -65,47 +65,50 @@ type PlateauOptions struct {
 
 // ChirpPlateau is the plateau analysis of one chirp.
 type ChirpPlateau struct {
-	GDDPS2 float64
+	GDDPS2 float64 `json:"gdd_ps2"`
 	// PlateauCounts is the plateau level: the largest value of the smoothed
 	// curve, reached at PlateauPowerUW.
-	PlateauCounts  float64
-	PlateauPowerUW float64
+	PlateauCounts  float64 `json:"plateau_counts"`
+	PlateauPowerUW float64 `json:"plateau_power_uw"`
 	// FirstMaxPowerUW, FirstMaxCounts: the first maximum of the smoothed
 	// curve (see Plateaus) and the raw counts there.
-	FirstMaxPowerUW float64
-	FirstMaxCounts  float64
+	FirstMaxPowerUW float64 `json:"first_max_power_uw"`
+	FirstMaxCounts  float64 `json:"first_max_counts"`
 	// LowUW … HighUW is the power interval around PlateauPowerUW over which
 	// the smoothed curve stays ≥ Fraction × plateau (after subtracting the
 	// background), with edges interpolated linearly between powers.
-	LowUW, HighUW float64
+	LowUW  float64 `json:"low_uw"`
+	HighUW float64 `json:"high_uw"`
 	// RangeUW = HighUW − LowUW; RangeDecades = log10(HighUW/LowUW).
-	RangeUW, RangeDecades float64
+	RangeUW      float64 `json:"range_uw"`
+	RangeDecades float64 `json:"range_decades"`
 	// OpenLow/OpenHigh: the interval reaches the first/last power of the
 	// scan, so the true range may be wider.
-	OpenLow, OpenHigh bool
+	OpenLow  bool `json:"open_low"`
+	OpenHigh bool `json:"open_high"`
 }
 
 // PlateauReport is the robustness analysis of a power × chirp map.
 type PlateauReport struct {
-	Fraction float64
-	Chirps   []ChirpPlateau // in the order of the map's GDD axis
+	Fraction float64        `json:"fraction"`
+	Chirps   []ChirpPlateau `json:"chirps"` // in the order of the map's GDD axis
 	// Best is the index in Chirps of the most robust chirp: the widest
 	// RangeUW among the chirps whose plateau is at least Fraction × the
 	// highest plateau of the map (a flat but low curve is not robust
 	// inversion); ties go to the smaller |GDD|.
-	Best       int
-	BestGDDPS2 float64
+	Best       int     `json:"best"`
+	BestGDDPS2 float64 `json:"best_gdd_ps2"`
 	// Zero is the index of the chirp closest to zero GDD, ZeroGDDPS2 its GDD.
-	Zero       int
-	ZeroGDDPS2 float64
+	Zero       int     `json:"zero"`
+	ZeroGDDPS2 float64 `json:"zero_gdd_ps2"`
 	// PiFidelity is the biexciton yield of the π pulse at zero chirp:
 	// (FirstMaxCounts − background) of the zero chirp divided by
 	// AmplitudeCounts when given (FidelityReference "model amplitude"),
 	// otherwise by (PlateauCounts − background) of the best chirp
 	// ("best plateau"): how close the Rabi π pulse comes to what the
 	// adiabatic passage reaches.
-	PiFidelity        float64
-	FidelityReference string
+	PiFidelity        float64 `json:"pi_fidelity"`
+	FidelityReference string  `json:"fidelity_reference"`
 }
 
 // Plateaus analyses a biexciton (XX) power × chirp map.
