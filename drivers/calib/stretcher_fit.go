@@ -81,29 +81,78 @@ func FitStretcher(stageMM, fwhmPS []float64) (StretcherFit, error) {
 		return StretcherFit{}, errors.New("stretcher fit: durations do not change with stage position")
 	}
 	k0 := sxy / sxx
+	return fitStretcher(stageMM, fwhmPS, []float64{k0, x0, tl}, 0)
+}
+
+// FitStretcherWithTL is FitStretcher with the transform-limited FWHM known
+// (e.g. from the laser's own autocorrelation at zero dispersion): two
+// parameters, |k| and x0; SigmaTLFWHMPS is 0.
+func FitStretcherWithTL(stageMM, fwhmPS []float64, tlFWHMPS float64) (StretcherFit, error) {
+	if !(tlFWHMPS > 0) || math.IsInf(tlFWHMPS, 0) {
+		return StretcherFit{}, fmt.Errorf("stretcher fit: tl_fwhm_ps %g: want > 0", tlFWHMPS)
+	}
+	if err := checkXY("stage_mm", "fwhm_ps", stageMM, fwhmPS, 3); err != nil {
+		return StretcherFit{}, fmt.Errorf("stretcher fit: %w", err)
+	}
+	// Start: x0 at the shortest pulse, |k| from |φ2| against |x − x0|.
+	imin := 0
+	for i, f := range fwhmPS {
+		if f < fwhmPS[imin] {
+			imin = i
+		}
+	}
+	x0 := stageMM[imin]
+	var sxy, sxx float64
+	for i, x := range stageMM {
+		if phi, err := GDDFromFWHMPS(tlFWHMPS, fwhmPS[i]); err == nil {
+			dx := math.Abs(x - x0)
+			sxy += dx * phi
+			sxx += dx * dx
+		}
+	}
+	if sxx == 0 || sxy == 0 {
+		return StretcherFit{}, errors.New("stretcher fit: durations do not rise above the transform limit away from the shortest pulse")
+	}
+	return fitStretcher(stageMM, fwhmPS, []float64{sxy / sxx, x0}, tlFWHMPS)
+}
+
+// fitStretcher runs the least squares from p0 = (k, x0[, TL FWHM]); with
+// two parameters the TL FWHM is fixed at tl.
+func fitStretcher(stageMM, fwhmPS, p0 []float64, tl float64) (StretcherFit, error) {
+	np := len(p0)
 	cf := curveFit{y: fwhmPS, model: func(p, f, jac []float64) {
-		k, xz, t0 := p[0], p[1], p[2]/fwhmPerHalfWidth
+		k, xz := p[0], p[1]
+		t0 := tl / fwhmPerHalfWidth
+		if np == 3 {
+			t0 = p[2] / fwhmPerHalfWidth
+		}
 		for i, x := range stageMM {
 			q := k * (x - xz)
 			s := t0*t0 + q*q/(t0*t0)
 			rs := math.Sqrt(s)
 			f[i] = fwhmPerHalfWidth * rs
 			if jac != nil {
-				jac[i*3+0] = fwhmPerHalfWidth * q * (x - xz) / (t0 * t0 * rs)
-				jac[i*3+1] = -fwhmPerHalfWidth * q * k / (t0 * t0 * rs)
-				jac[i*3+2] = (t0 - q*q/(t0*t0*t0)) / rs
+				jac[i*np+0] = fwhmPerHalfWidth * q * (x - xz) / (t0 * t0 * rs)
+				jac[i*np+1] = -fwhmPerHalfWidth * q * k / (t0 * t0 * rs)
+				if np == 3 {
+					jac[i*np+2] = (t0 - q*q/(t0*t0*t0)) / rs
+				}
 			}
 		}
 	}}
-	r, err := cf.levenbergMarquardt([]float64{k0, x0, tl})
+	r, err := cf.levenbergMarquardt(p0)
 	if err != nil {
 		return StretcherFit{}, fmt.Errorf("stretcher fit: %w", err)
 	}
-	return StretcherFit{
-		SlopePS2PerMM: math.Abs(r.P[0]), ZeroMM: r.P[1], TLFWHMPS: math.Abs(r.P[2]),
-		SigmaSlopePS2PerMM: r.Sigma[0], SigmaZeroMM: r.Sigma[1], SigmaTLFWHMPS: r.Sigma[2],
+	out := StretcherFit{
+		SlopePS2PerMM: math.Abs(r.P[0]), ZeroMM: r.P[1], TLFWHMPS: tl,
+		SigmaSlopePS2PerMM: r.Sigma[0], SigmaZeroMM: r.Sigma[1],
 		FitStats: newFitStats(r),
-	}, nil
+	}
+	if np == 3 {
+		out.TLFWHMPS, out.SigmaTLFWHMPS = math.Abs(r.P[2]), r.Sigma[2]
+	}
+	return out, nil
 }
 
 // Apply returns geom with the fitted zero position and with the lever

@@ -27,6 +27,11 @@ type stretcherGolden struct {
 	Sigma   map[string]float64 `json:"sigma"`
 	True    map[string]float64 `json:"true"`
 	RMSPS   float64            `json:"rms_ps"`
+	KnownTL struct {
+		TLFWHMPS float64            `json:"tl_fwhm_ps"`
+		Fit      map[string]float64 `json:"fit"`
+		Sigma    map[string]float64 `json:"sigma"`
+	} `json:"known_tl"`
 }
 
 func TestFitStretcherMatchesSciPy(t *testing.T) {
@@ -70,6 +75,25 @@ func TestFitStretcherMatchesSciPy(t *testing.T) {
 	k, _ := s.SlopePS2PerMM()
 	if math.Abs(k+f.SlopePS2PerMM) > 1e-12 || s.ZeroMM != f.ZeroMM {
 		t.Errorf("applied: slope %g zero %g, want %g at %g", k, s.ZeroMM, -f.SlopePS2PerMM, f.ZeroMM)
+	}
+}
+
+func TestFitStretcherWithTLMatchesSciPy(t *testing.T) {
+	var g stretcherGolden
+	readJSON(t, "testdata/stretcher_scipy.json", &g)
+	f, err := FitStretcherWithTL(g.StageMM, g.FWHMPS, g.KnownTL.TLFWHMPS)
+	if err != nil {
+		t.Fatal(err)
+	}
+	relClose(t, "slope", f.SlopePS2PerMM, g.KnownTL.Fit["slope_ps2_per_mm"], 1e-6)
+	relClose(t, "zero_mm", f.ZeroMM, g.KnownTL.Fit["zero_mm"], 1e-6)
+	relClose(t, "sigma slope", f.SigmaSlopePS2PerMM, g.KnownTL.Sigma["slope_ps2_per_mm"], 1e-4)
+	relClose(t, "sigma zero", f.SigmaZeroMM, g.KnownTL.Sigma["zero_mm"], 1e-4)
+	if f.TLFWHMPS != g.KnownTL.TLFWHMPS || f.SigmaTLFWHMPS != 0 || f.DoF != len(g.StageMM)-2 {
+		t.Errorf("fixed TL: %+v", f)
+	}
+	if _, err := FitStretcherWithTL(g.StageMM, g.FWHMPS, 0); err == nil {
+		t.Error("TL 0: want an error")
 	}
 }
 

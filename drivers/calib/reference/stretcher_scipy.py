@@ -39,6 +39,11 @@ def main():
                            ftol=1e-14, xtol=1e-14, gtol=1e-14, maxfev=100000)
     sig = np.sqrt(np.diag(pcov))
     res = y - fwhm(x, *popt)
+    # Second fit with the TL FWHM known (fixed at its true value).
+    tl = true["tl_fwhm_ps"]
+    popt2, pcov2 = curve_fit(lambda xx, k, x0: fwhm(xx, k, x0, tl), x, y, p0=[0.03, 590.0], method="lm",
+                             ftol=1e-14, xtol=1e-14, gtol=1e-14, maxfev=100000)
+    sig2 = np.sqrt(np.diag(pcov2))
     out = dict(
         generator="drivers/calib/reference/stretcher_scipy.py",
         scipy=scipy.__version__,
@@ -50,6 +55,11 @@ def main():
         fit=dict(slope_ps2_per_mm=abs(popt[0]), zero_mm=popt[1], tl_fwhm_ps=abs(popt[2])),
         sigma=dict(slope_ps2_per_mm=sig[0], zero_mm=sig[1], tl_fwhm_ps=sig[2]),
         rms_ps=float(np.sqrt(np.mean(res * res))),
+        known_tl=dict(
+            tl_fwhm_ps=tl,
+            fit=dict(slope_ps2_per_mm=abs(popt2[0]), zero_mm=popt2[1]),
+            sigma=dict(slope_ps2_per_mm=sig2[0], zero_mm=sig2[1]),
+        ),
     )
     path = os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "testdata", "stretcher_scipy.json")
     with open(path, "w") as f:
