@@ -11,15 +11,18 @@ import "math"
 // cross, which closed-form (cubic) solutions do not.
 func symEig3(h *[3][3]float64, e *[3]float64, v *[3][3]float64) {
 	*v = [3][3]float64{{1, 0, 0}, {0, 1, 0}, {0, 0, 1}}
-	jacobi(*h, e, v)
+	jacobi(*h, e, v, 1e-34)
 }
 
 // symEig3Warm is symEig3 started from the orthonormal matrix v (the
 // eigenvectors of a nearby matrix, such as H at the previous
 // right-hand-side call; the caller re-orthonormalises it now and then, see
 // orthonormalise): it rotates h into that basis first, where it is
-// nearly diagonal, so one or two sweeps finish the job. The result is an
-// eigendecomposition of h to the same accuracy as symEig3's.
+// nearly diagonal, so one or two sweeps finish the job. It stops when the
+// off-diagonal part is below 1e-9 of the diagonal: eigenvectors to about
+// 1e-9 (relative to the gaps), which puts errors of ~1e-9 on the phonon rates,
+// far below the solver's tolerance — and the next warm start continues from
+// there.
 func symEig3Warm(h *[3][3]float64, e *[3]float64, v *[3][3]float64) {
 	var hv, a [3][3]float64
 	for i := range 3 {
@@ -33,15 +36,16 @@ func symEig3Warm(h *[3][3]float64, e *[3]float64, v *[3][3]float64) {
 			a[j][i] = a[i][j]
 		}
 	}
-	jacobi(a, e, v)
+	jacobi(a, e, v, 1e-18)
 }
 
-// jacobi diagonalises a by rotations accumulated into v.
-func jacobi(a [3][3]float64, e *[3]float64, v *[3][3]float64) {
+// jacobi diagonalises a by rotations accumulated into v, until the sum of
+// squares of the off-diagonal elements is below rel2 × that of the diagonal.
+func jacobi(a [3][3]float64, e *[3]float64, v *[3][3]float64, rel2 float64) {
 	for sweep := 0; sweep < 50; sweep++ {
 		off := a[0][1]*a[0][1] + a[0][2]*a[0][2] + a[1][2]*a[1][2]
 		diag := a[0][0]*a[0][0] + a[1][1]*a[1][1] + a[2][2]*a[2][2]
-		if off <= 1e-34*diag || off == 0 {
+		if off <= rel2*diag || off == 0 {
 			break
 		}
 		rotate(&a, v, 0, 1)
