@@ -5,7 +5,8 @@
 //
 // Each driver decodes its own settings section: a driver that implements
 // SettingsMaker returns a value to decode into (its defaults filled in),
-// and the value may implement RoleChecker, LimitsTaker and RecorderTaker.
+// and the value may implement RoleChecker, LimitsTaker, RecorderTaker and
+// LoggerTaker.
 // So a new driver is one file that registers itself; this package needs no
 // change for it.
 package benchfile
@@ -44,6 +45,10 @@ type LimitsTaker interface{ SetLimits(drivers.Limits) }
 
 // RecorderTaker is implemented by settings whose transport can record.
 type RecorderTaker interface{ SetRecorder(*transport.Recorder) }
+
+// LoggerTaker is implemented by settings of drivers that log (retries,
+// reconnections); Open gives them Options.Logger.
+type LoggerTaker interface{ SetLogger(*slog.Logger) }
 
 // File is a parsed, validated bench file. Nothing is opened.
 type File struct {
@@ -398,6 +403,9 @@ func Open(ctx context.Context, f *File, opts Options) (*drivers.Bench, error) {
 	for _, in := range f.Instruments {
 		if rt, ok := in.Settings.(RecorderTaker); ok && rec != nil {
 			rt.SetRecorder(rec)
+		}
+		if lt, ok := in.Settings.(LoggerTaker); ok {
+			lt.SetLogger(log)
 		}
 		drv, err := drivers.Lookup(in.Driver)
 		if err != nil {

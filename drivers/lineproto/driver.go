@@ -56,7 +56,11 @@ func (d *Driver) Open(ctx context.Context, cfg drivers.Config) (drivers.Instrume
 	if err != nil {
 		return nil, fmt.Errorf("%s %q: %w", cfg.Role, cfg.Name, err)
 	}
-	in := &Instrument{name: cfg.Name, role: cfg.Role, s: s, ex: transport.Recorded(ex, s.rec), log: slog.Default()}
+	log := s.log
+	if log == nil {
+		log = slog.Default()
+	}
+	in := &Instrument{name: cfg.Name, role: cfg.Role, s: s, ex: transport.Recorded(ex, s.rec), log: log}
 	if in.s.flavour == "scpi" && s.Commands.Busy == nil && s.Commands.Wait == nil {
 		s.Commands.Wait = &Query{Send: mustTemplate("*OPC?"), Pattern: MustPattern(`^\s*\+?(?P<value>1)\s*$`)}
 	}
@@ -123,7 +127,11 @@ func openLink(s *Settings) (transport.Exchanger, error) {
 		if name == "" {
 			name = t.TCP
 		}
-		return transport.NewLink(name, op, spec.framing, slog.Default()), nil
+		log := s.log
+		if log == nil {
+			log = slog.Default()
+		}
+		return transport.NewLink(name, op, spec.framing, log), nil
 	})
 }
 

@@ -2,6 +2,7 @@ package lineproto
 
 import (
 	"fmt"
+	"log/slog"
 	"path/filepath"
 	"slices"
 	"strings"
@@ -56,6 +57,7 @@ type Settings struct {
 	limits  drivers.Limits
 	rec     *transport.Recorder
 	pool    *transport.Pool
+	log     *slog.Logger
 }
 
 // Transport selects and configures the link: exactly one of serial, tcp and
@@ -274,6 +276,10 @@ func (s *Settings) SetLimits(l drivers.Limits) { s.limits = l }
 
 // SetRecorder makes the instrument record every transaction.
 func (s *Settings) SetRecorder(r *transport.Recorder) { s.rec = r }
+
+// SetLogger sets the logger of the instrument and its link (retries,
+// reconnections).
+func (s *Settings) SetLogger(l *slog.Logger) { s.log = l }
 
 // SetPool makes the instrument take its link from p instead of
 // transport.DefaultPool.
