@@ -79,6 +79,8 @@ type Options struct {
 const (
 	defaultLockTimeout = 2 * time.Second
 	defaultMaxBatch    = 4096
+	// MaxBatchLimit bounds Options.MaxBatch (the queue holds 2 × MaxBatch items).
+	MaxBatchLimit = 1 << 16
 	// MaxScanIDBytes bounds scan ids (they are bbolt keys and bucket names).
 	MaxScanIDBytes = 128
 )
@@ -110,14 +112,19 @@ type Store struct {
 // Open opens (creating if needed) the database file at path and its
 // buckets, and starts the writer. The parent directory must exist.
 func Open(path string, o Options) (*Store, error) {
-	if o.LockTimeout <= 0 {
+	switch {
+	case o.LockTimeout < 0:
+		return nil, fmt.Errorf("store: open %s: LockTimeout %v, want ≥ 0 (0: %v): %w", path, o.LockTimeout, defaultLockTimeout, ErrInvalid)
+	case o.MaxBatch < 0 || o.MaxBatch > MaxBatchLimit:
+		return nil, fmt.Errorf("store: open %s: MaxBatch %d, allowed 0 … %d (0: %d): %w", path, o.MaxBatch, MaxBatchLimit, defaultMaxBatch, ErrInvalid)
+	case o.MaxDelay < 0:
+		return nil, fmt.Errorf("store: open %s: MaxDelay %v, want ≥ 0: %w", path, o.MaxDelay, ErrInvalid)
+	}
+	if o.LockTimeout == 0 {
 		o.LockTimeout = defaultLockTimeout
 	}
-	if o.MaxBatch <= 0 {
+	if o.MaxBatch == 0 {
 		o.MaxBatch = defaultMaxBatch
-	}
-	if o.MaxDelay < 0 {
-		o.MaxDelay = 0
 	}
 	if o.Logger == nil {
 		o.Logger = slog.Default()

@@ -1,9 +1,11 @@
 package store
 
 import (
+	"bytes"
 	"context"
 	"errors"
 	"fmt"
+	"os"
 	"slices"
 	"strings"
 	"sync"
@@ -12,6 +14,7 @@ import (
 	"time"
 
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
+	bolt "go.etcd.io/bbolt"
 	"google.golang.org/protobuf/proto"
 	"google.golang.org/protobuf/types/known/timestamppb"
 )
@@ -600,5 +603,75 @@ func TestConcurrentScans(t *testing.T) {
 	}
 	if err := s.Check(); err != nil {
 		t.Fatal(err)
+	}
+}
+
+func TestOpenOptions(t *testing.T) {
+	dir := t.TempDir()
+	tests := []struct {
+		name  string
+		path  string
+		o     Options
+		field string // named in the error; "" when Open must succeed
+	}{
+		{"defaults", dir + "/a.db", Options{}, ""},
+		{"negative MaxBatch", dir + "/b.db", Options{MaxBatch: -1}, "MaxBatch -1"},
+		{"huge MaxBatch", dir + "/b.db", Options{MaxBatch: MaxBatchLimit + 1}, "MaxBatch 65537"},
+		{"negative MaxDelay", dir + "/b.db", Options{MaxDelay: -time.Millisecond}, "MaxDelay -1ms"},
+		{"negative LockTimeout", dir + "/b.db", Options{LockTimeout: -time.Second}, "LockTimeout -1s"},
+		{"missing directory", dir + "/no/such/dir/c.db", Options{}, dir + "/no/such/dir/c.db"},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			s, err := Open(tc.path, tc.o)
+			if tc.field == "" {
+				if err != nil {
+					t.Fatal(err)
+				}
+				if err := s.Close(); err != nil {
+					t.Fatal(err)
+				}
+				return
+			}
+			if err == nil {
+				s.Close()
+				t.Fatal("Open succeeded")
+			}
+			if !strings.Contains(err.Error(), tc.field) {
+				t.Fatalf("error %q does not name %q", err, tc.field)
+			}
+		})
+	}
+	// A file that is not a gliss store is refused, naming the file.
+	if err := os.WriteFile(dir+"/junk.db", bytes.Repeat([]byte("not a database "), 1000), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	if s, err := Open(dir+"/junk.db", Options{}); err == nil || !strings.Contains(err.Error(), dir+"/junk.db") {
+		if s != nil {
+			s.Close()
+		}
+		t.Fatalf("Open of a junk file: %v", err)
+	}
+	// A store of a layout this code does not know is refused, not rewritten.
+	db, err := bolt.Open(dir+"/future.db", 0o600, &bolt.Options{Timeout: time.Second})
+	if err != nil {
+		t.Fatal(err)
+	}
+	err = db.Update(func(tx *bolt.Tx) error {
+		m, err := tx.CreateBucket(bucketMeta)
+		if err != nil {
+			return err
+		}
+		return m.Put(keyLayout, []byte("2"))
+	})
+	db.Close()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if s, err := Open(dir+"/future.db", Options{}); err == nil || !strings.Contains(err.Error(), `layout version "2"`) {
+		if s != nil {
+			s.Close()
+		}
+		t.Fatalf("Open of a layout-2 file: %v", err)
 	}
 }
