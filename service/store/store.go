@@ -26,7 +26,10 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"io/fs"
 	"log/slog"
+	"os"
+	"path/filepath"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -129,6 +132,8 @@ func Open(path string, o Options) (*Store, error) {
 	if o.Logger == nil {
 		o.Logger = slog.Default()
 	}
+	_, statErr := os.Stat(path)
+	created := errors.Is(statErr, fs.ErrNotExist)
 	db, err := bolt.Open(path, 0o600, &bolt.Options{
 		Timeout: o.LockTimeout,
 		MaxSize: o.maxSizeBytes,
@@ -144,6 +149,14 @@ func Open(path string, o Options) (*Store, error) {
 		_ = db.Close()
 		return nil, fmt.Errorf("store: open %s: %w", path, err)
 	}
+	if created {
+		// bbolt fsyncs the file, not the directory entry of a new file: without
+		// this a power cut could lose the whole new file, commits and all.
+		if err := syncDir(filepath.Dir(path)); err != nil {
+			_ = db.Close()
+			return nil, fmt.Errorf("store: open %s: %w", path, err)
+		}
+	}
 	s := &Store{
 		path:    path,
 		db:      db,
@@ -153,6 +166,18 @@ func Open(path string, o Options) (*Store, error) {
 	}
 	go s.run()
 	return s, nil
+}
+
+func syncDir(dir string) error {
+	d, err := os.Open(dir)
+	if err != nil {
+		return fmt.Errorf("sync directory: %w", err)
+	}
+	defer d.Close()
+	if err := d.Sync(); err != nil {
+		return fmt.Errorf("sync directory %s: %w", dir, err)
+	}
+	return nil
 }
 
 // Path is the database file's path.

@@ -46,6 +46,9 @@ func TestScanRecords(t *testing.T) {
 		{"put absent", func() error { return s.PutScan(ctx, testScan("01Z", "x", 0, t0)) }, ErrNotFound},
 		{"get absent", func() error { _, err := s.GetScan("01Z"); return err }, ErrNotFound},
 		{"count absent", func() error { _, err := s.PointCount("01Z"); return err }, ErrNotFound},
+		{"get empty id", func() error { _, err := s.GetScan(""); return err }, ErrNotFound},
+		{"count empty id", func() error { _, err := s.PointCount(""); return err }, ErrNotFound},
+		{"read empty id", func() error { return s.ReadPoints(ctx, "", 0, func(*glissv1.Point) error { return nil }) }, ErrNotFound},
 		{"put running", func() error { return s.PutScan(ctx, running) }, nil},
 	}
 	for _, tc := range tests {
