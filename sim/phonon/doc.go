@@ -22,7 +22,7 @@
 // The Redfield tensor and its secular rule are those of QuTiP's brmesolve
 // (an element is kept when |ω_ab − ω_cd| < 0.1 × the smallest non-zero
 // eigenvalue gap), and reference/brme_golden.py checks the whole model
-// against brmesolve (testdata/brme_golden.json, 20 parameter sets).
+// against brmesolve (testdata/brme_golden.json, 23 parameter sets).
 //
 // Physics in one paragraph (facts of the trade, common practice, checked in
 // trade_test.go): for positive GDD the adiabatic passage G → XX follows the

@@ -15,10 +15,9 @@ import (
 // is model.AxisAreaPi or model.AxisDetuningMeV), other parameters from base,
 // in the row-major order of model.Map: index i·len(values)+j is
 // (gddPS2[i], values[j]). With b == nil or b.AlphaPS2 == 0 it is model.Map,
-// bit for bit. The work is spread over runtime.GOMAXPROCS(0) goroutines (at
-// most workers when workers > 0 is given through MapWorkers); every point is
-// a pure function of its parameters, so the result does not depend on the
-// number of workers. progress (may be nil) is called from Map's goroutine
+// bit for bit. The work is spread over runtime.GOMAXPROCS(0) goroutines;
+// every point is a pure function of its parameters, so the result does not
+// depend on the number of workers. progress (may be nil) is called from Map's goroutine
 // about ten times a second and once at the end, never concurrently. Map
 // stops early, with the context's error, when ctx is cancelled.
 func Map(ctx context.Context, base model.Params, b *Bath, gddPS2 []float64, second model.Axis, values []float64, progress func(done, total int)) ([]model.MapPoint, error) {
@@ -26,6 +25,7 @@ func Map(ctx context.Context, base model.Params, b *Bath, gddPS2 []float64, seco
 }
 
 // MapWorkers is Map with an explicit number of goroutines (0: GOMAXPROCS).
+// Without an active bath it is model.Map, which picks its own number.
 func MapWorkers(ctx context.Context, base model.Params, b *Bath, gddPS2 []float64, second model.Axis, values []float64, workers int, progress func(done, total int)) ([]model.MapPoint, error) {
 	if !b.Active() {
 		return model.Map(ctx, base, gddPS2, second, values, progress)

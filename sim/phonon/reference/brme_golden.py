@@ -57,7 +57,7 @@ def case(name, fwhm, gdd, area, eb=4.1, det=0.0, tx=0.0, txx=0.0,
                 temperature_k=temp)
 
 
-# 20 parameter sets: both chirp signs, temperatures 1.5 to 30 K, with and
+# 23 parameter sets: both chirp signs, temperatures 0.3 to 40 K, with and
 # without radiative decay (lifetime 0 means no decay), two cutoffs and
 # couplings, a detuned case and a weakly chirped (Rabi-like) case.
 CASES = [
@@ -81,6 +81,9 @@ CASES = [
     case("minus18_a10_30K_a05_c1", 3.0, -18.0, 10.0, alpha=0.05, cutoff=1.0, temp=30.0),
     case("plus2_a4_4K2_decay", 2.4, 2.0, 4.0, tx=270, txx=130),
     case("minus5_a9_4K2_c16", 2.4, -5.0, 9.0, cutoff=1.6, temp=4.2),
+    case("minus20_a12_0K3_decay", 2.4, -20.0, 12.0, tx=270, txx=130, temp=0.3),
+    case("plus20_a12_0K3_decay", 2.4, 20.0, 12.0, tx=270, txx=130, temp=0.3),
+    case("plus20_a6_40K_decay", 2.4, 20.0, 6.0, tx=270, txx=130, temp=40.0),
 ]
 
 
