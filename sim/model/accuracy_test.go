@@ -62,3 +62,32 @@ func TestSolveAllocs(t *testing.T) {
 		t.Errorf("Solve allocates %.1f times per call, want 0", a)
 	}
 }
+
+// TestToleranceConvergence: on a problem with a closed-form answer (a
+// resonant constant drive, P_e(t) = sin²(Ω·t/2), with a detuned level 2
+// coupled in so that all components move) the error falls with the
+// tolerance and stays within 100× of it.
+func TestToleranceConvergence(t *testing.T) {
+	s := NewSolver()
+	const om, tEnd = 1.3, 40.0
+	want := math.Pow(math.Sin(om*tEnd/2), 2)
+	prev := math.Inf(1)
+	for _, tol := range []float64{1e-5, 1e-7, 1e-9, 1e-11} {
+		l := Ladder{
+			Coupling: [2]float64{1, 0},
+			Envelope: constEnvelope(om),
+			StartPS:  0,
+			EndPS:    tEnd,
+		}
+		r, err := s.SolveLadder(&l, tol)
+		if err != nil {
+			t.Fatal(err)
+		}
+		e := math.Abs(real(r.Rho[1][1]) - want)
+		t.Logf("tolerance %g: error %.2g in %d steps", tol, e, r.Steps)
+		if e > 100*tol || (e > 1e-13 && e >= prev) {
+			t.Errorf("tolerance %g: error %.2g (previous %.2g)", tol, e, prev)
+		}
+		prev = e
+	}
+}

@@ -2,6 +2,9 @@ package model
 
 import (
 	"context"
+	"os"
+	"strconv"
+	"strings"
 	"testing"
 )
 
@@ -82,4 +85,39 @@ func BenchmarkMap101Serial(b *testing.B) {
 	b.ReportMetric(b.Elapsed().Seconds()/float64(b.N)/n, "s/point")
 	b.ReportMetric((cpuTime(b)-c0).Seconds()/float64(b.N)/n, "cpu-s/point")
 	b.ReportMetric(n*float64(b.N)/b.Elapsed().Seconds(), "points/s")
+}
+
+// BenchmarkSpeedPoints times the points given in GLISS_SPEED_POINTS
+// ("gdd:area,gdd:area,…", demo dot with decay) one after the other; it is
+// the gliss half of reference/qutip_speed.py and skips without the variable.
+func BenchmarkSpeedPoints(b *testing.B) {
+	spec := os.Getenv("GLISS_SPEED_POINTS")
+	if spec == "" {
+		b.Skip("GLISS_SPEED_POINTS not set (run reference/qutip_speed.py)")
+	}
+	var pts []Params
+	for _, f := range strings.Split(spec, ",") {
+		g, a, ok := strings.Cut(f, ":")
+		gdd, err1 := strconv.ParseFloat(g, 64)
+		area, err2 := strconv.ParseFloat(a, 64)
+		if !ok || err1 != nil || err2 != nil {
+			b.Fatalf("GLISS_SPEED_POINTS: bad point %q", f)
+		}
+		p := DemoParams()
+		p.GDDPS2, p.AreaPi = gdd, area
+		pts = append(pts, p)
+	}
+	s := NewSolver()
+	b.ReportAllocs()
+	c0 := cpuTime(b)
+	for b.Loop() {
+		for _, p := range pts {
+			if _, err := s.Solve(p); err != nil {
+				b.Fatal(err)
+			}
+		}
+	}
+	n := float64(b.N * len(pts))
+	b.ReportMetric(b.Elapsed().Seconds()/n, "s/point")
+	b.ReportMetric((cpuTime(b)-c0).Seconds()/n, "cpu-s/point")
 }

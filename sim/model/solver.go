@@ -137,6 +137,7 @@ func (s *Solver) setup(l *Ladder) {
 	u2 := u1 * v
 	pt := [3]complex128{psi[0], psi[1] * u1, psi[2] * u2}
 	s.y = [nMax]float64{}
+	s.k = [12][nMax]float64{} // unused components must stay zero
 	if !s.density {
 		s.n = 6
 		for j := range 3 {
@@ -301,30 +302,16 @@ func (s *Solver) initialStep(t float64, f0 *[nMax]float64, hmax, tol float64) fl
 	return min(100*h0, h1, hmax)
 }
 
-// dopRows lists, for each stage i, the j < i with a_ij ≠ 0.
-var dopRows = func() (rows [12][]int) {
-	for i := range 12 {
-		for j := range i {
-			if dopA[i][j] != 0 {
-				rows[i] = append(rows[i], j)
-			}
-		}
-	}
-	return rows
-}()
-
 func (s *Solver) integrate(t0, t1, hmax, tol float64) error {
 	if hmax <= 0 || hmax > t1-t0 {
 		hmax = t1 - t0
 	}
-	n := s.n
-	y, yn, yt, k := &s.y, &s.ynew, &s.ytmp, &s.k
+	y, yn, k := &s.y, &s.ynew, &s.k
 	t := t0
 	var cEnd coef // coefficients at the current t (first stage)
 	s.coefAt(t, &cEnd)
 	s.deriv(&cEnd, y, &k[0])
 	h := s.initialStep(t, &k[0], hmax, tol)
-	var c coef
 	for {
 		if s.steps+s.rejects > maxSteps {
 			return fmt.Errorf("%w: %d steps reached at t = %g ps of [%g, %g]", ErrTooManySteps, maxSteps, t, t0, t1)
@@ -338,48 +325,8 @@ func (s *Solver) integrate(t0, t1, hmax, tol float64) error {
 		if last {
 			tn = t1
 		}
-		for i := 1; i < 12; i++ {
-			row := &dopA[i]
-			for q := 0; q < n; q++ {
-				yt[q] = 0
-			}
-			for _, j := range dopRows[i] {
-				a, kj := h*row[j], &k[j]
-				for q := 0; q < n; q++ {
-					yt[q] += a * kj[q]
-				}
-			}
-			for q := 0; q < n; q++ {
-				yt[q] += y[q]
-			}
-			if i == 11 {
-				s.coefAt(tn, &cEnd)
-				s.deriv(&cEnd, yt, &k[i])
-			} else {
-				s.coefAt(t+dopC[i]*h, &c)
-				s.deriv(&c, yt, &k[i])
-			}
-		}
-		var e5, e3 float64
-		for q := 0; q < n; q++ {
-			var b, d5, d3 float64
-			for j := range 12 {
-				kj := k[j][q]
-				b += dopB[j] * kj
-				d5 += dopE5[j] * kj
-				d3 += dopE3[j] * kj
-			}
-			yn[q] = y[q] + h*b
-			sc := tol + tol*max(math.Abs(y[q]), math.Abs(yn[q]))
-			d5 /= sc
-			d3 /= sc
-			e5 += d5 * d5
-			e3 += d3 * d3
-		}
-		var errv float64
-		if e5 != 0 || e3 != 0 {
-			errv = h * e5 / math.Sqrt((e5+0.01*e3)*float64(n))
-		}
+		s.dopStages(t, h, tn, &cEnd)
+		errv := s.dopCombine(h, tol)
 		fac11 := math.Pow(errv, ctlExpo)
 		fac := max(ctlFacc2, min(ctlFacc1, fac11/ctlSafe))
 		if errv <= 1 {
