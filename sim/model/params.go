@@ -151,8 +151,17 @@ func (p Params) ladderWith(pu Pulse, env Envelope) Ladder {
 	}
 }
 
-// Hamiltonian fills h with H(t)/ħ in rad/ps in the basis G, X, XX (see Ladder).
+// Hamiltonian fills h with H(t)/ħ in rad/ps in the basis G, X, XX (see
+// Ladder): diagonal 0, (E_B/2 − ΔL)/ħ − a·t, −2ΔL/ħ − 2a·t; −Ω(t)/2 on the
+// G–X and X–XX links. It does not allocate.
 func (p Params) Hamiltonian(tPS float64, h *[3][3]complex128) {
-	l := p.Ladder()
-	l.HamiltonianAt(tPS, h)
+	pu := p.Pulse()
+	dx, dxx := p.DetuningsRadPS()
+	a := pu.ChirpRate()
+	w := complex(-0.5*pu.RabiAt(tPS), 0)
+	*h = [3][3]complex128{
+		{0, w, 0},
+		{w, complex(dx-a*tPS, 0), w},
+		{0, w, complex(dxx-2*a*tPS, 0)},
+	}
 }

@@ -65,3 +65,33 @@ func TestPulseAreaAndEnergy(t *testing.T) {
 		}
 	}
 }
+
+// TestHamiltonian checks Params.Hamiltonian against PHYSICS.md §2 written
+// out by hand for one instant, and against the Ladder the solver uses.
+func TestHamiltonian(t *testing.T) {
+	p := DemoParams()
+	p.GDDPS2, p.AreaPi, p.DetuningMeV = 12, 3, 0.3
+	const tt = 4.0
+	pu := NewPulse(2.4, 12, 3)
+	a := pu.ChirpRate()
+	om := pu.RabiAt(tt)
+	want := [3][3]float64{
+		{0, -om / 2, 0},
+		{-om / 2, (4.1/2-0.3)/HbarMeVPS - a*tt, -om / 2},
+		{0, -om / 2, -2*0.3/HbarMeVPS - 2*a*tt},
+	}
+	var h, hl [3][3]complex128
+	p.Hamiltonian(tt, &h)
+	l := p.Ladder()
+	l.HamiltonianAt(tt, &hl)
+	for i := range 3 {
+		for j := range 3 {
+			if d := math.Abs(real(h[i][j]) - want[i][j]); d > 1e-12 || imag(h[i][j]) != 0 || h[i][j] != hl[i][j] {
+				t.Errorf("H[%d][%d] = %v (ladder %v), want %g", i, j, h[i][j], hl[i][j], want[i][j])
+			}
+		}
+	}
+	if n := testing.AllocsPerRun(10, func() { p.Hamiltonian(tt, &h) }); n != 0 {
+		t.Errorf("Hamiltonian allocates %.0f times", n)
+	}
+}
