@@ -20,6 +20,7 @@ func BenchmarkGoldenCase(b *testing.B) {
 			s := NewSolver()
 			var r model.Result
 			var err error
+			cpu0 := cpuSeconds()
 			for b.Loop() {
 				r, err = s.Solve(p, &bath)
 				if err != nil {
@@ -29,6 +30,7 @@ func BenchmarkGoldenCase(b *testing.B) {
 			e := max(math.Abs(r.G-c.G), math.Abs(r.X-c.X), math.Abs(r.XX-c.XX), math.Abs(r.NX-c.NX), math.Abs(r.NXX-c.NXX))
 			b.ReportMetric(e*1e6, "maxerr_1e-6")
 			b.ReportMetric(float64(s.steps), "steps")
+			b.ReportMetric((cpuSeconds()-cpu0)*1e3/float64(b.N), "cpu-ms/op")
 		})
 	}
 }
@@ -39,12 +41,14 @@ func BenchmarkDemoPoint(b *testing.B) {
 	p.GDDPS2, p.AreaPi = 20, 10
 	bath := DemoBath()
 	s := NewSolver()
+	cpu0 := cpuSeconds()
 	for b.Loop() {
 		if _, err := s.Solve(p, &bath); err != nil {
 			b.Fatal(err)
 		}
 	}
 	b.ReportMetric(float64(s.steps), "steps")
+	b.ReportMetric((cpuSeconds()-cpu0)*1e3/float64(b.N), "cpu-ms/op")
 	b.ReportAllocs()
 }
 

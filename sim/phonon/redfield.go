@@ -25,12 +25,12 @@ func redfieldEig(sp *spectrum, e *[3]float64, a *[3][3]float64, rho *[3][3]compl
 	g[0][2], g[2][0] = sp.pair(e[0] - e[2])
 	g[1][2], g[2][1] = sp.pair(e[1] - e[2])
 
+	// smallest non-zero gap (exactly equal eigenvalues do not count, as in
+	// QuTiP; all equal leaves MaxFloat64)
 	dwMin := math.MaxFloat64
-	for i := range 3 {
-		for j := range 3 {
-			if d := math.Abs(e[i] - e[j]); d != 0 && d < dwMin {
-				dwMin = d
-			}
+	for _, d := range [3]float64{math.Abs(e[0] - e[1]), math.Abs(e[0] - e[2]), math.Abs(e[1] - e[2])} {
+		if d != 0 && d < dwMin {
+			dwMin = d
 		}
 	}
 	cut := SecularCutoff * dwMin

@@ -1,0 +1,53 @@
+package phonon
+
+import (
+	"testing"
+
+	"github.com/gliss-lab/gliss/sim/model"
+)
+
+func BenchmarkRHSPieces(b *testing.B) {
+	p := model.DemoParams()
+	p.GDDPS2, p.AreaPi = 20, 10
+	l := p.Ladder()
+	bath := DemoBath()
+	s := NewSolver()
+	s.setup(&l, &bath)
+	var y, dy [nY]float64
+	y[0], y[1], y[2], y[3], y[4] = 0.5, 0.3, 0.2, 0.1, 0.05
+	b.Run("rhs", func(b *testing.B) {
+		t := 0.0
+		for b.Loop() {
+			t += 0.01
+			if t > 5 {
+				t = 0
+			}
+			s.rhs(t, &y, &dy)
+		}
+	})
+	b.Run("eigwarm", func(b *testing.B) {
+		var h [3][3]float64
+		var e [3]float64
+		v := [3][3]float64{{1, 0, 0}, {0, 1, 0}, {0, 0, 1}}
+		t := 0.0
+		for b.Loop() {
+			t += 0.01
+			if t > 5 {
+				t = 0
+			}
+			w := 0.5 * l.Envelope.RabiAt(t)
+			h[1][1], h[2][2] = s.e1+s.s1*t, s.e2+s.s2*t
+			h[0][1], h[1][0], h[1][2], h[2][1] = -w, -w, -w, -w
+			symEig3Warm(&h, &e, &v)
+		}
+	})
+	b.Run("redfield", func(b *testing.B) {
+		e := [3]float64{-2, 0.7, 3}
+		a := [3][3]float64{{0.5, 0.3, 0.1}, {0.3, 1, 0.4}, {0.1, 0.4, 1.5}}
+		var rho, out [3][3]complex128
+		rho[0][0], rho[0][1], rho[1][0] = 1, 0.1, 0.1
+		for b.Loop() {
+			redfieldEig(&s.sp, &e, &a, &rho, &out)
+		}
+	})
+}
