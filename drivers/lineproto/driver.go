@@ -78,7 +78,11 @@ func (d *Driver) Open(ctx context.Context, cfg drivers.Config) (drivers.Instrume
 			return nil, err
 		}
 	}
-	return in, nil
+	out, err := forRole(in)
+	if err != nil {
+		ex.Close()
+	}
+	return out, err
 }
 
 func mustTemplate(s string) Template {
@@ -135,9 +139,9 @@ func openLink(s *Settings) (transport.Exchanger, error) {
 	})
 }
 
-// Instrument is one opened line-protocol instrument. It implements the
-// role interface of its role (and all the others, refusing the calls its
-// commands do not describe), drivers.Identifier, and Close.
+// Instrument is one opened line-protocol instrument: the part common to
+// all roles (Identify, Home, Close). Open returns it wrapped in the type of
+// its role (Stage, Attenuator, …).
 type Instrument struct {
 	name string
 	role drivers.Role
@@ -293,15 +297,92 @@ func (in *Instrument) readNumber(ctx context.Context, what string, q *Query, uni
 	})
 }
 
-var (
-	_ drivers.Stage       = (*Instrument)(nil)
-	_ drivers.Attenuator  = (*Instrument)(nil)
-	_ drivers.PowerMeter  = (*Instrument)(nil)
-	_ drivers.Counter     = (*Instrument)(nil)
-	_ drivers.Laser       = (*Instrument)(nil)
-	_ drivers.Thermometer = (*Instrument)(nil)
-	_ drivers.Identifier  = (*Instrument)(nil)
+// The value Open returns implements exactly its role's interface (callers
+// tell roles apart by type assertion), plus drivers.Identifier.
+type (
+	// Stage is a lineproto stage.
+	Stage struct{ *Instrument }
+	// Attenuator is a lineproto attenuator.
+	Attenuator struct{ *Instrument }
+	// PowerMeter is a lineproto power meter.
+	PowerMeter struct{ *Instrument }
+	// Counter is a lineproto counter.
+	Counter struct{ *Instrument }
+	// Laser is a lineproto laser.
+	Laser struct{ *Instrument }
+	// Thermometer is a lineproto thermometer.
+	Thermometer struct{ *Instrument }
 )
+
+// MoveToMM moves the stage and waits for it to arrive.
+func (s Stage) MoveToMM(ctx context.Context, mm float64) error { return s.moveToMM(ctx, mm) }
+
+// PositionMM reads the stage's position.
+func (s Stage) PositionMM(ctx context.Context) (float64, error) { return s.positionMM(ctx) }
+
+// SetAngleDeg rotates the attenuator and waits for it to arrive.
+func (a Attenuator) SetAngleDeg(ctx context.Context, deg float64) error {
+	return a.setAngleDeg(ctx, deg)
+}
+
+// AngleDeg reads the attenuator's angle.
+func (a Attenuator) AngleDeg(ctx context.Context) (float64, error) { return a.angleDeg(ctx) }
+
+// PowerUW reads the power meter.
+func (p PowerMeter) PowerUW(ctx context.Context) (float64, error) { return p.powerUW(ctx) }
+
+// Channels names the counter's channels.
+func (c Counter) Channels() []string { return c.channels() }
+
+// Count opens the gate and returns the counts per channel.
+func (c Counter) Count(ctx context.Context, gate time.Duration) ([]uint64, error) {
+	return c.count(ctx, gate)
+}
+
+// SetDetuningMeV tunes the laser and waits until it reports the detuning.
+func (l Laser) SetDetuningMeV(ctx context.Context, mev float64) error {
+	return l.setDetuningMeV(ctx, mev)
+}
+
+// DetuningMeV reads the laser's detuning.
+func (l Laser) DetuningMeV(ctx context.Context) (float64, error) { return l.detuningMeV(ctx) }
+
+// TemperatureK reads the thermometer.
+func (t Thermometer) TemperatureK(ctx context.Context) (float64, error) { return t.temperatureK(ctx) }
+
+// SetSetpointK sets the thermometer's setpoint.
+func (t Thermometer) SetSetpointK(ctx context.Context, k float64) error {
+	return t.setSetpointK(ctx, k)
+}
+
+var (
+	_ drivers.Stage       = Stage{}
+	_ drivers.Attenuator  = Attenuator{}
+	_ drivers.PowerMeter  = PowerMeter{}
+	_ drivers.Counter     = Counter{}
+	_ drivers.Laser       = Laser{}
+	_ drivers.Thermometer = Thermometer{}
+	_ drivers.Identifier  = Stage{}
+)
+
+// forRole wraps in in the type of its role.
+func forRole(in *Instrument) (drivers.Instrument, error) {
+	switch in.role {
+	case drivers.RoleStage:
+		return Stage{in}, nil
+	case drivers.RoleAttenuator:
+		return Attenuator{in}, nil
+	case drivers.RolePowerMeter:
+		return PowerMeter{in}, nil
+	case drivers.RoleCounter:
+		return Counter{in}, nil
+	case drivers.RoleLaser:
+		return Laser{in}, nil
+	case drivers.RoleThermometer:
+		return Thermometer{in}, nil
+	}
+	return nil, fmt.Errorf("%s %q: unknown role", in.role, in.name)
+}
 
 var errWrongRole = errors.New("not this instrument's role")
 
@@ -312,8 +393,8 @@ func (in *Instrument) must(r drivers.Role) error {
 	return nil
 }
 
-// MoveToMM moves a stage and waits for it to arrive.
-func (in *Instrument) MoveToMM(ctx context.Context, mm float64) error {
+// moveToMM moves a stage and waits for it to arrive.
+func (in *Instrument) moveToMM(ctx context.Context, mm float64) error {
 	if err := in.must(drivers.RoleStage); err != nil {
 		return err
 	}
@@ -321,16 +402,16 @@ func (in *Instrument) MoveToMM(ctx context.Context, mm float64) error {
 	return in.moveTo(ctx, axis{name: "stage_mm", unit: "mm", min: l.StageMinMM, max: l.StageMaxMM, speed: l.StageSpeedMMPerS, accel: l.StageAccelMMPerS2}, mm)
 }
 
-// PositionMM reads a stage's position.
-func (in *Instrument) PositionMM(ctx context.Context) (float64, error) {
+// positionMM reads a stage's position.
+func (in *Instrument) positionMM(ctx context.Context) (float64, error) {
 	if err := in.must(drivers.RoleStage); err != nil {
 		return 0, err
 	}
 	return in.position(ctx)
 }
 
-// SetAngleDeg rotates an attenuator and waits for it to arrive.
-func (in *Instrument) SetAngleDeg(ctx context.Context, deg float64) error {
+// setAngleDeg rotates an attenuator and waits for it to arrive.
+func (in *Instrument) setAngleDeg(ctx context.Context, deg float64) error {
 	if err := in.must(drivers.RoleAttenuator); err != nil {
 		return err
 	}
@@ -338,16 +419,16 @@ func (in *Instrument) SetAngleDeg(ctx context.Context, deg float64) error {
 	return in.moveTo(ctx, axis{name: "angle_deg", unit: "deg", min: l.AngleMinDeg, max: l.AngleMaxDeg, speed: l.RotationSpeedDegPerS}, deg)
 }
 
-// AngleDeg reads an attenuator's angle.
-func (in *Instrument) AngleDeg(ctx context.Context) (float64, error) {
+// angleDeg reads an attenuator's angle.
+func (in *Instrument) angleDeg(ctx context.Context) (float64, error) {
 	if err := in.must(drivers.RoleAttenuator); err != nil {
 		return 0, err
 	}
 	return in.position(ctx)
 }
 
-// SetDetuningMeV tunes a laser and waits until it reports the detuning.
-func (in *Instrument) SetDetuningMeV(ctx context.Context, mev float64) error {
+// setDetuningMeV tunes a laser and waits until it reports the detuning.
+func (in *Instrument) setDetuningMeV(ctx context.Context, mev float64) error {
 	if err := in.must(drivers.RoleLaser); err != nil {
 		return err
 	}
@@ -355,32 +436,32 @@ func (in *Instrument) SetDetuningMeV(ctx context.Context, mev float64) error {
 	return in.moveTo(ctx, axis{name: "detuning_mev", unit: "meV", min: l.DetuningMinMeV, max: l.DetuningMaxMeV, speed: l.DetuningSpeedMeVPerS}, mev)
 }
 
-// DetuningMeV reads a laser's detuning.
-func (in *Instrument) DetuningMeV(ctx context.Context) (float64, error) {
+// detuningMeV reads a laser's detuning.
+func (in *Instrument) detuningMeV(ctx context.Context) (float64, error) {
 	if err := in.must(drivers.RoleLaser); err != nil {
 		return 0, err
 	}
 	return in.position(ctx)
 }
 
-// PowerUW reads a power meter, converting SI prefixes of W to µW.
-func (in *Instrument) PowerUW(ctx context.Context) (float64, error) {
+// powerUW reads a power meter, converting SI prefixes of W to µW.
+func (in *Instrument) powerUW(ctx context.Context) (float64, error) {
 	if err := in.must(drivers.RolePowerMeter); err != nil {
 		return 0, err
 	}
 	return in.readNumber(ctx, "read power", in.s.Commands.Read, "uW", 0)
 }
 
-// TemperatureK reads a thermometer.
-func (in *Instrument) TemperatureK(ctx context.Context) (float64, error) {
+// temperatureK reads a thermometer.
+func (in *Instrument) temperatureK(ctx context.Context) (float64, error) {
 	if err := in.must(drivers.RoleThermometer); err != nil {
 		return 0, err
 	}
 	return in.readNumber(ctx, "read temperature", in.s.Commands.Read, "K", 0)
 }
 
-// SetSetpointK sets a thermometer's setpoint (idempotent: retried).
-func (in *Instrument) SetSetpointK(ctx context.Context, k float64) error {
+// setSetpointK sets a thermometer's setpoint (idempotent: retried).
+func (in *Instrument) setSetpointK(ctx context.Context, k float64) error {
 	if err := in.must(drivers.RoleThermometer); err != nil {
 		return err
 	}
@@ -401,13 +482,13 @@ func (in *Instrument) SetSetpointK(ctx context.Context, k float64) error {
 	return err
 }
 
-// Channels names the counter's channels.
-func (in *Instrument) Channels() []string { return append([]string(nil), in.s.Channels...) }
+// channels names the counter's channels.
+func (in *Instrument) channels() []string { return append([]string(nil), in.s.Channels...) }
 
-// Count opens the gate and returns the counts per channel. With a gate
+// count opens the gate and returns the counts per channel. With a gate
 // command, the gate is sent, the gate time waited, then count is read;
 // otherwise count carries the gate and its reply comes at the gate's end.
-func (in *Instrument) Count(ctx context.Context, gate time.Duration) ([]uint64, error) {
+func (in *Instrument) count(ctx context.Context, gate time.Duration) ([]uint64, error) {
 	if err := in.must(drivers.RoleCounter); err != nil {
 		return nil, err
 	}

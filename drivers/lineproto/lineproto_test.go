@@ -179,7 +179,16 @@ func openFake(t *testing.T, flavour, text string, role drivers.Role, lim drivers
 	if err != nil {
 		t.Fatal(err)
 	}
-	return inst.(*Instrument)
+	// Callers tell roles apart by type assertion: the opened value must
+	// implement its own role's interface and no other.
+	_, isStage := inst.(drivers.Stage)
+	_, isAtt := inst.(drivers.Attenuator)
+	_, isPM := inst.(drivers.PowerMeter)
+	_, isCtr := inst.(drivers.Counter)
+	if isStage != (role == drivers.RoleStage) || isAtt || isPM || isCtr {
+		t.Fatalf("a %s opened as %T implements stage %v, attenuator %v, powermeter %v, counter %v", role, inst, isStage, isAtt, isPM, isCtr)
+	}
+	return inst.(Stage).Instrument
 }
 
 var fakeLimits = drivers.Limits{StageMinMM: 0, StageMaxMM: 100, StageSpeedMMPerS: 500, StageAccelMMPerS2: 0}
@@ -188,14 +197,14 @@ func TestMoveArrivesAndRefusesOutOfRange(t *testing.T) {
 	dev := &fakeStage{speed: 500, pos: 10}
 	in := openFake(t, "lineproto", fmt.Sprintf(stageYAML, t.Name()), drivers.RoleStage, fakeLimits, dev)
 	ctx := context.Background()
-	if err := in.MoveToMM(ctx, 30); err != nil {
+	if err := in.moveToMM(ctx, 30); err != nil {
 		t.Fatal(err)
 	}
-	if p, err := in.PositionMM(ctx); err != nil || math.Abs(p-30) > 1e-6 {
+	if p, err := in.positionMM(ctx); err != nil || math.Abs(p-30) > 1e-6 {
 		t.Fatalf("position after move = %v, %v; want 30", p, err)
 	}
 	before := dev.count("MOVE")
-	err := in.MoveToMM(ctx, 150)
+	err := in.moveToMM(ctx, 150)
 	if !errors.Is(err, drivers.ErrLimit) || !strings.Contains(err.Error(), "[0, 100]") {
 		t.Fatalf("move beyond travel: %v; want ErrLimit naming the range", err)
 	}
@@ -207,7 +216,7 @@ func TestMoveArrivesAndRefusesOutOfRange(t *testing.T) {
 func TestLostAckIsNotResentBlindly(t *testing.T) {
 	dev := &fakeStage{speed: 500, pos: 10, dropAck: 1}
 	in := openFake(t, "lineproto", fmt.Sprintf(stageYAML, t.Name()), drivers.RoleStage, fakeLimits, dev)
-	if err := in.MoveToMM(context.Background(), 40); err != nil {
+	if err := in.moveToMM(context.Background(), 40); err != nil {
 		t.Fatal(err)
 	}
 	if n := dev.count("MOVE"); n != 1 {
@@ -218,7 +227,7 @@ func TestLostAckIsNotResentBlindly(t *testing.T) {
 func TestLostCommandIsResentAfterCheckingPosition(t *testing.T) {
 	dev := &fakeStage{speed: 500, pos: 10, dropCmd: 1}
 	in := openFake(t, "lineproto", fmt.Sprintf(stageYAML, t.Name()), drivers.RoleStage, fakeLimits, dev)
-	if err := in.MoveToMM(context.Background(), 40); err != nil {
+	if err := in.moveToMM(context.Background(), 40); err != nil {
 		t.Fatal(err)
 	}
 	dev.mu.Lock()
@@ -244,12 +253,12 @@ func TestLostCommandIsResentAfterCheckingPosition(t *testing.T) {
 func TestGarbledReplyRetriedNeverZero(t *testing.T) {
 	dev := &fakeStage{speed: 500, pos: 12.5, garblePos: 2}
 	in := openFake(t, "lineproto", fmt.Sprintf(stageYAML, t.Name()), drivers.RoleStage, fakeLimits, dev)
-	p, err := in.PositionMM(context.Background())
+	p, err := in.positionMM(context.Background())
 	if err != nil || p != 12.5 {
 		t.Fatalf("position = %v, %v; want 12.5 after two garbled replies", p, err)
 	}
 	dev.garblePos = 10
-	p, err = in.PositionMM(context.Background())
+	p, err = in.positionMM(context.Background())
 	if err == nil || !errors.Is(err, drivers.ErrUnavailable) || !errors.Is(err, ErrBadReply) {
 		t.Fatalf("persistently garbled: %v, %v; want an error wrapping ErrUnavailable and ErrBadReply", p, err)
 	}
@@ -259,7 +268,7 @@ func TestSilentInstrumentIsUnavailable(t *testing.T) {
 	dev := &fakeStage{speed: 500, pos: 1}
 	in := openFake(t, "lineproto", fmt.Sprintf(stageYAML, t.Name()), drivers.RoleStage, fakeLimits, dev)
 	dev.silent = true
-	err := in.MoveToMM(context.Background(), 5)
+	err := in.moveToMM(context.Background(), 5)
 	if !errors.Is(err, drivers.ErrUnavailable) || !errors.Is(err, transport.ErrTimeout) {
 		t.Fatalf("silent stage: %v; want ErrUnavailable wrapping the timeout", err)
 	}
@@ -268,7 +277,7 @@ func TestSilentInstrumentIsUnavailable(t *testing.T) {
 func TestStalledMoveIsAnError(t *testing.T) {
 	dev := &fakeStage{speed: 500, pos: 10, stall: true}
 	in := openFake(t, "lineproto", fmt.Sprintf(stageYAML, t.Name()), drivers.RoleStage, fakeLimits, dev)
-	err := in.MoveToMM(context.Background(), 50)
+	err := in.moveToMM(context.Background(), 50)
 	if err == nil || !strings.Contains(err.Error(), "stopped at 30") {
 		t.Fatalf("stalled move: %v; want an error naming where it stopped", err)
 	}
@@ -278,12 +287,12 @@ func TestNoBusyQueryPollsPositionWithDeadline(t *testing.T) {
 	text := strings.Replace(fmt.Sprintf(stageYAML, t.Name()), "  busy: {send: 'BUSY?', busy: '^BUSY 1$', ready: '^BUSY 0$'}\n", "", 1)
 	dev := &fakeStage{speed: 500, pos: 10}
 	in := openFake(t, "lineproto", text, drivers.RoleStage, fakeLimits, dev)
-	if err := in.MoveToMM(context.Background(), 60); err != nil {
+	if err := in.moveToMM(context.Background(), 60); err != nil {
 		t.Fatal(err)
 	}
 	dev.stall = true
 	t0 := time.Now()
-	err := in.MoveToMM(context.Background(), 0)
+	err := in.moveToMM(context.Background(), 0)
 	if err == nil || !strings.Contains(err.Error(), "did not arrive") {
 		t.Fatalf("stalled move without busy query: %v", err)
 	}
@@ -308,7 +317,7 @@ commands:
 	if id, _ := in.Identify(ctx); id != dev.idn {
 		t.Fatalf("identify = %q; want the *IDN? reply read at connect", id)
 	}
-	if err := in.MoveToMM(ctx, 20); err != nil {
+	if err := in.moveToMM(ctx, 20); err != nil {
 		t.Fatal(err)
 	}
 	for _, want := range []string{"*IDN?", "*CLS", "POS:TARG 20.0000", "SYST:ERR?", "*OPC?"} {
@@ -320,7 +329,7 @@ commands:
 	dev.refuse = true
 	dev.mu.Unlock()
 	before := dev.count("POS:TARG")
-	err := in.MoveToMM(ctx, 30)
+	err := in.moveToMM(ctx, 30)
 	if !errors.Is(err, ErrRefused) || !errors.Is(err, drivers.ErrUnavailable) || !strings.Contains(err.Error(), "Data out of range") {
 		t.Fatalf("refused move: %v; want ErrRefused and ErrUnavailable with the instrument's message", err)
 	}
@@ -355,6 +364,7 @@ func TestRecordThenReplayGivesSameReadings(t *testing.T) {
 		t.Fatal(err)
 	}
 	stage := inst.(drivers.Stage)
+	_ = stage
 	if err := stage.MoveToMM(ctx, 25); err != nil {
 		t.Fatal(err)
 	}
