@@ -86,7 +86,7 @@ def main():
     cmd = ["go", "test", "./sim/phonon", "-run", "^$", "-bench", pattern, "-benchtime", args.benchtime]
     print("$ " + " ".join(cmd), flush=True)
     out = subprocess.run(cmd, cwd=REPO, capture_output=True, text=True, check=True).stdout
-    line = re.compile(r"^BenchmarkGoldenCase/(\S+?)(?:-\d+)?\s+\d+\s+([\d.]+) ns/op\s+([\d.]+) maxerr_1e-6")
+    line = re.compile(r"^BenchmarkGoldenCase/(\S+?)(?:-\d+)?\s+\d+\s+([\d.]+) ns/op.*?\s([\d.]+) maxerr_1e-6")
     print("%-28s %10s %10s %10s %10s %9s %9s %9s" % (
         "case", "qutip s", "qutip-int", "qutip err", "go ms", "go err", "ratio", "ratio-int"))
     worst, worst_int = float("inf"), float("inf")
