@@ -80,7 +80,7 @@ var (
 	rngGDD      = fmt.Sprintf("-%g to %g ps²", model.MaxAbsGDDPS2, model.MaxAbsGDDPS2)
 	rngArea     = fmt.Sprintf("0 to %g", model.MaxAreaPi)
 	rngMeV      = fmt.Sprintf("-%g to %g meV", model.MaxAbsMeV, model.MaxAbsMeV)
-	rngLifetime = fmt.Sprintf("0 (no decay) to %g ps", model.MaxLifetimePS)
+	rngLifetime = fmt.Sprintf("0 (no decay) or %g to %g ps", model.MinLifetimePS, model.MaxLifetimePS)
 	rngTol      = fmt.Sprintf("0 (default %g) or %g to %g", model.DefaultTolerance, model.MinTolerance, model.MaxTolerance)
 )
 

@@ -95,3 +95,24 @@ func FuzzParseRange(f *testing.F) {
 		}
 	})
 }
+
+// FuzzParseList: ParseList either fails or returns 1…MaxRangeN finite values.
+func FuzzParseList(f *testing.F) {
+	for _, s := range []string{"1,2,3", "", "1,,2", " -1e3 , 4", "NaN", "1e400"} {
+		f.Add(s)
+	}
+	f.Fuzz(func(t *testing.T, s string) {
+		v, err := ParseList(s)
+		if err != nil {
+			return
+		}
+		if len(v) < 1 || len(v) > MaxRangeN {
+			t.Fatalf("ParseList(%q): %d values", s, len(v))
+		}
+		for _, x := range v {
+			if math.IsNaN(x) || math.IsInf(x, 0) {
+				t.Fatalf("ParseList(%q) has %g", s, x)
+			}
+		}
+	})
+}

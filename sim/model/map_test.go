@@ -98,6 +98,7 @@ func TestValidate(t *testing.T) {
 		{"BindingMeV", func(p *Params) { p.BindingMeV = 1e3 }},
 		{"DetuningMeV", func(p *Params) { p.DetuningMeV = nan }},
 		{"XLifetimePS", func(p *Params) { p.XLifetimePS = -1 }},
+		{"XLifetimePS", func(p *Params) { p.XLifetimePS = 0.01 }},
 		{"XXLifetimePS", func(p *Params) { p.XXLifetimePS = math.Inf(-1) }},
 		{"Tolerance", func(p *Params) { p.Tolerance = 0.5 }},
 	} {
