@@ -285,15 +285,16 @@ func (in *Instrument) readNumber(ctx context.Context, what string, q *Query, uni
 	if err != nil {
 		return 0, in.wrap(what, err)
 	}
-	if q.Unit != "" {
-		unit = q.Unit
+	want := unit
+	if want == "" {
+		want = q.Unit
 	}
 	return retry(ctx, in, what, func() (float64, error) {
 		got, err := in.exchange(ctx, cmd, true, extra)
 		if err != nil {
 			return 0, err
 		}
-		return ParseNumber(got, q.Pattern, unit)
+		return ParseNumber(got, q.Pattern, q.Unit, want)
 	})
 }
 

@@ -16,6 +16,7 @@ func TestParseNumber(t *testing.T) {
 		{"600.000", "", "", 600, false},
 		{"  -12.5e-1 ", "", "", -1.25, false},
 		{"12.5 uW", "", "uW", 12.5, false},
+		{"1.234E-05", "", "W→uW", 12.34, false},
 		// SI prefixes (BIPM, The International System of Units, 9th ed., 2019, §3):
 		// 1 mW = 10³ µW, 1 W = 10⁶ µW, 1 nW = 10⁻³ µW.
 		{"1.5E-2 mW", "", "uW", 15, false},
@@ -43,7 +44,11 @@ func TestParseNumber(t *testing.T) {
 		if c.pattern != "" {
 			p = MustPattern(c.pattern)
 		}
-		got, err := ParseNumber(c.reply, p, c.unit)
+		assumed, want, _ := strings.Cut(c.unit, "→")
+		if want == "" {
+			want, assumed = assumed, ""
+		}
+		got, err := ParseNumber(c.reply, p, assumed, want)
 		if c.bad {
 			if err == nil || !errors.Is(err, ErrBadReply) {
 				t.Errorf("ParseNumber(%q, %q) = %v, %v; want ErrBadReply", c.reply, c.unit, got, err)
@@ -147,7 +152,7 @@ func FuzzParseNumber(f *testing.F) {
 	pat := MustPattern(`^(?:POS )?(?P<value>\S+)(?: (?P<unit>\S+))?$`)
 	f.Fuzz(func(t *testing.T, reply, unit string) {
 		for _, p := range []*Pattern{nil, pat} {
-			v, err := ParseNumber(reply, p, unit)
+			v, err := ParseNumber(reply, p, "", unit)
 			if err != nil {
 				if !errors.Is(err, ErrBadReply) {
 					t.Fatalf("%q: error %v does not wrap ErrBadReply", reply, err)

@@ -108,11 +108,12 @@ func shiftDecimal(num string, shift int) (float64, error) {
 
 // ParseNumber reads a number from a reply. With a pattern, its group named
 // "value" holds the number and an optional group "unit" the unit; without
-// one, the reply is a number optionally followed by a unit. want is the unit
-// the caller works in ("" for none); a reply in another SI prefix of the
-// same unit is converted. NaN, infinities and anything else that is not a
-// number are ErrBadReply.
-func ParseNumber(reply string, p *Pattern, want string) (float64, error) {
+// one, the reply is a number optionally followed by a unit. assumed is the
+// unit of a reply that carries none ("" means want); want is the unit the
+// caller works in ("" for none). A value in another SI prefix of the same
+// unit is converted. NaN, infinities and anything else that is not a number
+// are ErrBadReply.
+func ParseNumber(reply string, p *Pattern, assumed, want string) (float64, error) {
 	var num, unit string
 	if p != nil && p.re != nil {
 		m := p.re.FindStringSubmatch(reply)
@@ -133,6 +134,9 @@ func ParseNumber(reply string, p *Pattern, want string) (float64, error) {
 			return 0, fmt.Errorf("%w: %q is not a number with an optional unit", ErrBadReply, reply)
 		}
 		num, unit = m[1], m[2]
+	}
+	if unit == "" {
+		unit = assumed
 	}
 	shift, err := unitShift(unit, want)
 	if err != nil {
@@ -199,7 +203,10 @@ func ParseState(reply string, busy, ready *Pattern) (isBusy bool, err error) {
 
 // Query is a command that expects a reply, with how to read it. In a bench
 // file it is a string (the command; the reply is a number with an optional
-// unit) or a mapping:
+// unit) or a mapping. Unit is the unit of a reply that carries none (a power
+// meter answering in W: unit W); a reply's own unit is converted by its SI
+// prefix to the role's unit (µW for power, K for temperature; for
+// positions, Unit itself, before scale and offset):
 //
 //	position: {send: "POS?", pattern: '^POS (?P<value>\S+)$'}
 //	busy:     {send: "BUSY?", busy: '^BUSY 1$', ready: '^BUSY 0$'}
