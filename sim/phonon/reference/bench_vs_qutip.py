@@ -13,14 +13,17 @@ times, both errors against the golden values (QuTiP at atol 1e-10, rtol 1e-8)
 and the ratios. Run it from the repository root; it needs `go` on PATH.
 """
 import argparse
+import atexit
 import os
 import re
+import shutil
 import subprocess
 import sys
 import tempfile
 import time
 
 HERE = os.path.dirname(os.path.abspath(__file__))
+sys.dont_write_bytecode = True  # no __pycache__ in the repository
 sys.path.insert(0, HERE)
 import brme_golden as bg  # noqa: E402
 import json  # noqa: E402
@@ -65,6 +68,7 @@ def main():
         golden = json.load(f)["cases"]
 
     work = tempfile.mkdtemp(prefix="gliss-brme-bench-")
+    atexit.register(shutil.rmtree, work, True)
     cwd = os.getcwd()
     os.chdir(work)
     sys.path.insert(0, work)

@@ -25,9 +25,11 @@ Usage (Debian's Python, which has python3-qutip and cython3):
 The cases are of our own choosing (demo dot of PHYSICS.md and variations).
 """
 import argparse
+import atexit
 import json
 import math
 import os
+import shutil
 import sys
 import tempfile
 import time
@@ -152,6 +154,7 @@ def main():
     # QuTiP writes and compiles its generated Cython right-hand side in the
     # working directory: keep that out of the repository.
     work = tempfile.mkdtemp(prefix="gliss-brme-")
+    atexit.register(shutil.rmtree, work, True)
     os.chdir(work)
     sys.path.insert(0, work)
     if args.write:
