@@ -74,6 +74,9 @@ type Transport struct {
 	WriteTerminator string        `bench:"write_terminator"`
 	ReadTerminator  string        `bench:"read_terminator"`
 	Timeout         time.Duration `bench:"timeout"`
+	// Quiet is the silence awaited after a failed transaction before the
+	// next command (see transport.Framing.Quiet).
+	Quiet time.Duration `bench:"quiet"`
 }
 
 type transportFields Transport
@@ -110,7 +113,7 @@ func (t *Transport) DecodeNode(d *yamlnode.Decoder, n *yaml.Node, key string) er
 }
 
 func (t Transport) framing() transport.Framing {
-	return transport.Framing{WriteTerminator: t.WriteTerminator, ReadTerminator: t.ReadTerminator, Timeout: t.Timeout}
+	return transport.Framing{WriteTerminator: t.WriteTerminator, ReadTerminator: t.ReadTerminator, Timeout: t.Timeout, Quiet: t.Quiet}
 }
 
 // Commands are the command templates. Which ones an instrument needs

@@ -19,6 +19,11 @@ type Framing struct {
 	Timeout time.Duration
 	// MaxLineBytes bounds one reply line (4096 when zero).
 	MaxLineBytes int
+	// Quiet is how long the line must stay silent, after a transaction that
+	// gave up (timeout, partial line), before the next command is sent, so
+	// that a late reply is discarded instead of being taken for the next
+	// one (100 ms when zero; at most 10 × Quiet is spent waiting).
+	Quiet time.Duration
 }
 
 func (f Framing) withDefaults() Framing {
@@ -33,6 +38,9 @@ func (f Framing) withDefaults() Framing {
 	}
 	if f.MaxLineBytes <= 0 {
 		f.MaxLineBytes = 4096
+	}
+	if f.Quiet <= 0 {
+		f.Quiet = 100 * time.Millisecond
 	}
 	return f
 }
@@ -54,6 +62,7 @@ type Link struct {
 	s       Stream        // nil when not connected
 	pending []byte
 	closed  bool
+	dirty   bool // the last transaction gave up: a late reply may follow
 	buf     []byte
 }
 
@@ -111,6 +120,11 @@ func (l *Link) Exchange(ctx context.Context, tx Tx) (string, error) {
 		l.drop(err)
 		return "", fmt.Errorf("%s: drain input: %w", l.name, err)
 	}
+	if l.dirty {
+		if err := l.waitQuiet(ctx); err != nil {
+			return "", fmt.Errorf("%s: wait for a quiet line: %w", l.name, err)
+		}
+	}
 	msg := make([]byte, 0, len(tx.Send)+len(l.f.WriteTerminator))
 	msg = append(append(msg, tx.Send...), l.f.WriteTerminator...)
 	if err := writeAll(l.s, msg); err != nil {
@@ -126,9 +140,43 @@ func (l *Link) Exchange(ctx context.Context, tx Tx) (string, error) {
 	}
 	line, err := l.readLine(ctx, time.Now().Add(timeout))
 	if err != nil {
+		l.dirty = true
 		return "", fmt.Errorf("%s: reply to %q: %w", l.name, tx.Send, err)
 	}
+	if len(l.pending) > 0 {
+		// More than one line came back: something is out of step.
+		l.dirty = true
+	}
 	return line, nil
+}
+
+// waitQuiet discards input until the line has been silent for Quiet.
+func (l *Link) waitQuiet(ctx context.Context) error {
+	for i := 0; i < 10; i++ {
+		quietUntil := time.Now().Add(l.f.Quiet)
+		got := false
+		for !got {
+			if err := ctx.Err(); err != nil {
+				return err
+			}
+			left := time.Until(quietUntil)
+			if left <= 0 {
+				l.dirty = false
+				return nil
+			}
+			n, err := l.s.ReadTimeout(l.buf, min(left, pollSlice))
+			if err != nil {
+				l.drop(err)
+				return err
+			}
+			if n > 0 {
+				l.log.Debug("discarded late input", "port", l.name, "bytes", n)
+				got = true
+			}
+		}
+	}
+	l.dirty = false // a chattering line: give up waiting, the reply patterns decide
+	return nil
 }
 
 func writeAll(s Stream, p []byte) error {
@@ -200,6 +248,7 @@ func (l *Link) drop(cause error) {
 		l.s = nil
 	}
 	l.pending = l.pending[:0]
+	l.dirty = false
 }
 
 // Close closes the link. A transaction in progress finishes first (its

@@ -51,6 +51,9 @@ func TestSerialLinkOverPTY(t *testing.T) {
 			return "PA", true
 		case "SILENT?":
 			return "", false
+		case "SLOW?": // answers after the client gave up
+			time.Sleep(80 * time.Millisecond)
+			return "LATE 1\n", true
 		}
 		return "ERR unknown\n", true
 	})
@@ -77,6 +80,14 @@ func TestSerialLinkOverPTY(t *testing.T) {
 	got, err = l.Exchange(ctx, Tx{Send: "POS?", Reply: true})
 	if err != nil || got != "POS 12.5" {
 		t.Fatalf("after timeouts POS? = %q, %v", got, err)
+	}
+	// A late reply is discarded, not taken for the next command's.
+	if _, err := l.Exchange(ctx, Tx{Send: "SLOW?", Reply: true, Timeout: 30 * time.Millisecond}); !errors.Is(err, ErrTimeout) {
+		t.Fatalf("slow device: %v; want ErrTimeout", err)
+	}
+	got, err = l.Exchange(ctx, Tx{Send: "POS?", Reply: true})
+	if err != nil || got != "POS 12.5" {
+		t.Fatalf("after a late reply POS? = %q, %v; want \"POS 12.5\"", got, err)
 	}
 	// A cancelled context ends the wait long before the timeout.
 	cctx, cancel := context.WithTimeout(ctx, 20*time.Millisecond)
