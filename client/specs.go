@@ -40,7 +40,8 @@ type Options struct {
 	Notes string
 }
 
-func (o Options) spec(axes ...*glissv1.Axis) *glissv1.ScanSpec {
+// Spec makes a scan spec of these options over the given axes.
+func (o Options) Spec(axes ...*glissv1.Axis) *glissv1.ScanSpec {
 	g := o.GateMS
 	if g == 0 {
 		g = 100
@@ -60,25 +61,25 @@ func Fixed(kind glissv1.AxisKind, value float64) *glissv1.Setpoint {
 
 // MapSpec is a power × chirp map: GDD (ps², slow axis) × power (µW, fast axis).
 func MapSpec(gddPS2, powerUW Values, o Options) *glissv1.ScanSpec {
-	return o.spec(Axis(glissv1.AxisKind_AXIS_KIND_GDD_PS2, gddPS2), Axis(glissv1.AxisKind_AXIS_KIND_POWER_UW, powerUW))
+	return o.Spec(Axis(glissv1.AxisKind_AXIS_KIND_GDD_PS2, gddPS2), Axis(glissv1.AxisKind_AXIS_KIND_POWER_UW, powerUW))
 }
 
 // PowerSpec is a power sweep (µW) at the fixed settings of o.
 func PowerSpec(powerUW Values, o Options) *glissv1.ScanSpec {
-	return o.spec(Axis(glissv1.AxisKind_AXIS_KIND_POWER_UW, powerUW))
+	return o.Spec(Axis(glissv1.AxisKind_AXIS_KIND_POWER_UW, powerUW))
 }
 
 // ChirpSpec is a GDD sweep (ps²) at the fixed settings of o.
 func ChirpSpec(gddPS2 Values, o Options) *glissv1.ScanSpec {
-	return o.spec(Axis(glissv1.AxisKind_AXIS_KIND_GDD_PS2, gddPS2))
+	return o.Spec(Axis(glissv1.AxisKind_AXIS_KIND_GDD_PS2, gddPS2))
 }
 
 // DetuningSpec is a detuning sweep (meV) at the fixed settings of o.
 func DetuningSpec(detuningMeV Values, o Options) *glissv1.ScanSpec {
-	return o.spec(Axis(glissv1.AxisKind_AXIS_KIND_DETUNING_MEV, detuningMeV))
+	return o.Spec(Axis(glissv1.AxisKind_AXIS_KIND_DETUNING_MEV, detuningMeV))
 }
 
 // DetuningChirpSpec is a detuning × chirp map: GDD (slow) × detuning (fast).
 func DetuningChirpSpec(gddPS2, detuningMeV Values, o Options) *glissv1.ScanSpec {
-	return o.spec(Axis(glissv1.AxisKind_AXIS_KIND_GDD_PS2, gddPS2), Axis(glissv1.AxisKind_AXIS_KIND_DETUNING_MEV, detuningMeV))
+	return o.Spec(Axis(glissv1.AxisKind_AXIS_KIND_GDD_PS2, gddPS2), Axis(glissv1.AxisKind_AXIS_KIND_DETUNING_MEV, detuningMeV))
 }

@@ -12,6 +12,7 @@ import (
 	"fmt"
 	"log/slog"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"google.golang.org/protobuf/proto"
@@ -104,6 +105,13 @@ type run struct {
 	plan    *plan.Plan
 	version uint64 // incremented on each record change
 
+	// state mirrors rec.State for readers that hold e.mu (lock order:
+	// r.mu before e.mu, never the reverse).
+	state atomic.Int32
+
+	// pmu guards what the store's durability callback touches. It is never
+	// held while calling the store: the callback runs on the store's writer.
+	pmu      sync.Mutex
 	durable  uint64 // points known durable
 	recent   []*glissv1.Point
 	writeErr error
@@ -113,6 +121,35 @@ type run struct {
 	resume              chan struct{} // closed-and-replaced on resume
 
 	logs []*glissv1.LogLine
+}
+
+func newRun(rec *glissv1.Scan, p *plan.Plan, durable uint64) *run {
+	r := &run{rec: rec, plan: p, resume: make(chan struct{}), durable: durable}
+	r.state.Store(int32(rec.State))
+	return r
+}
+
+func (r *run) durableCount() uint64 {
+	r.pmu.Lock()
+	defer r.pmu.Unlock()
+	return r.durable
+}
+
+// setDurable resets the durable count (from the store) and clears a write error.
+func (r *run) setDurable(n uint64) {
+	r.pmu.Lock()
+	r.durable = n
+	r.writeErr = nil
+	r.pmu.Unlock()
+}
+
+// takeWriteErr returns and clears the first write error since the last call.
+func (r *run) takeWriteErr() error {
+	r.pmu.Lock()
+	defer r.pmu.Unlock()
+	err := r.writeErr
+	r.writeErr = nil
+	return err
 }
 
 const recentCap = 4096
@@ -190,7 +227,7 @@ func (e *Engine) Submit(ctx context.Context, spec *glissv1.ScanSpec) (*glissv1.S
 		return nil, fmt.Errorf("store scan %s: %w", rec.Id, err)
 	}
 	out := proto.Clone(rec).(*glissv1.Scan) // before the runner can touch rec
-	r := &run{rec: rec, plan: p, resume: make(chan struct{})}
+	r := newRun(rec, p, 0)
 	e.mu.Lock()
 	e.runs[rec.Id] = r
 	e.queue = append(e.queue, r)
@@ -237,7 +274,8 @@ func (e *Engine) transitionLocked(ctx context.Context, r *run, to glissv1.ScanSt
 	case glissv1.ScanState_SCAN_STATE_SUCCEEDED, glissv1.ScanState_SCAN_STATE_FAILED, glissv1.ScanState_SCAN_STATE_CANCELLED:
 		r.rec.FinishedAt = timestamppb.New(now)
 	}
-	r.rec.PointsStored = r.durable
+	r.rec.PointsStored = r.durableCount()
+	r.state.Store(int32(to))
 	r.version++
 	err := e.store.PutScan(context.WithoutCancel(ctx), r.rec)
 	e.log.Info("scan state", "scan", r.rec.Id, "from", from.String(), "to", to.String(), "reason", reason)
@@ -356,7 +394,7 @@ func (e *Engine) requeueStored(ctx context.Context, id, reason string) (*glissv1
 	if err != nil {
 		return nil, fmt.Errorf("scan %s no longer fits the bench %q: %v: %w", id, e.bench.Name, err, ErrState)
 	}
-	r := &run{rec: rec, plan: p, resume: make(chan struct{}), durable: rec.PointsStored}
+	r := newRun(rec, p, rec.PointsStored)
 	r.mu.Lock()
 	err = e.transitionLocked(ctx, r, glissv1.ScanState_SCAN_STATE_QUEUED, reason)
 	out := proto.Clone(r.rec).(*glissv1.Scan)
@@ -392,7 +430,7 @@ func (e *Engine) Cancel(ctx context.Context, id, reason string) (*glissv1.Scan, 
 		if rec.State != glissv1.ScanState_SCAN_STATE_INTERRUPTED {
 			return nil, fmt.Errorf("scan %s is %s and cannot be cancelled: %w", id, short(rec.State), ErrState)
 		}
-		r = &run{rec: rec, durable: rec.PointsStored}
+		r = newRun(rec, nil, rec.PointsStored)
 		r.mu.Lock()
 		defer r.mu.Unlock()
 		if err := e.transitionLocked(ctx, r, glissv1.ScanState_SCAN_STATE_CANCELLED, reason); err != nil {
@@ -509,7 +547,7 @@ func (e *Engine) Recover(ctx context.Context, autoResume bool) error {
 		all[i], all[j] = all[j], all[i]
 	}
 	for _, rec := range all {
-		r := &run{rec: rec, resume: make(chan struct{}), durable: rec.PointsStored}
+		r := newRun(rec, nil, rec.PointsStored)
 		r.mu.Lock()
 		if rec.State == glissv1.ScanState_SCAN_STATE_RUNNING || rec.State == glissv1.ScanState_SCAN_STATE_PAUSED {
 			reason := fmt.Sprintf("glissd stopped while the scan was %s, after %d of %d points", short(rec.State), rec.PointsStored, rec.GetPreview().GetPoints())

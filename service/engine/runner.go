@@ -45,10 +45,7 @@ func (e *Engine) next() *run {
 		return nil
 	}
 	for _, r := range e.queue {
-		r.mu.Lock()
-		st := r.rec.State
-		r.mu.Unlock()
-		if st == glissv1.ScanState_SCAN_STATE_QUEUED {
+		if glissv1.ScanState(r.state.Load()) == glissv1.ScanState_SCAN_STATE_QUEUED {
 			e.holder = r.rec.Id
 			for i, q := range e.queue {
 				if q == r {
@@ -63,13 +60,12 @@ func (e *Engine) next() *run {
 }
 
 func (e *Engine) release(r *run) {
+	st := glissv1.ScanState(r.state.Load())
+	terminal := isTerminal(st) || st == glissv1.ScanState_SCAN_STATE_INTERRUPTED
 	e.mu.Lock()
 	if e.holder == r.rec.Id {
 		e.holder = ""
 	}
-	r.mu.Lock()
-	terminal := isTerminal(r.rec.State) || r.rec.State == glissv1.ScanState_SCAN_STATE_INTERRUPTED
-	r.mu.Unlock()
 	if terminal {
 		delete(e.runs, r.rec.Id)
 	}
@@ -86,10 +82,11 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 		e.endWith(ctx, r, glissv1.ScanState_SCAN_STATE_PAUSED, fmt.Sprintf("cannot read the stored point count: %v", err))
 		return
 	}
-	r.mu.Lock()
-	r.durable = start
-	r.writeErr = nil
+	r.setDurable(start)
+	r.pmu.Lock()
 	r.recent = r.recent[:0]
+	r.pmu.Unlock()
+	r.mu.Lock()
 	reason := "started"
 	if start > 0 {
 		reason = fmt.Sprintf("continuing from point %d of %d", start, r.plan.Points)
@@ -166,15 +163,12 @@ func (e *Engine) runScanTail(ctx context.Context, r *run) {
 	e.mu.Unlock()
 	r.mu.Lock()
 	r.rec.State = glissv1.ScanState_SCAN_STATE_QUEUED // runScan records QUEUED→RUNNING as a resume
+	r.state.Store(int32(r.rec.State))
 	r.mu.Unlock()
 	e.runScan(ctx, r)
 }
 
-func (e *Engine) durableOrStored(r *run) uint64 {
-	r.mu.Lock()
-	defer r.mu.Unlock()
-	return r.durable
-}
+func (e *Engine) durableOrStored(r *run) uint64 { return r.durableCount() }
 
 // waitStored waits for the store to settle and returns the stored count.
 func (e *Engine) waitStored(ctx context.Context, r *run) uint64 {
@@ -183,23 +177,19 @@ func (e *Engine) waitStored(ctx context.Context, r *run) uint64 {
 	if err != nil {
 		return e.durableOrStored(r)
 	}
-	r.mu.Lock()
-	r.durable = n
-	r.writeErr = nil
-	r.mu.Unlock()
+	r.setDurable(n)
 	return n
 }
 
 // pointDurable is the store's callback: only now may anyone hear of p.
 func (e *Engine) pointDurable(r *run, p *glissv1.Point, err error) {
-	r.mu.Lock()
+	r.pmu.Lock()
 	if err != nil {
+		// The runner pauses before its next point (see between).
 		if r.writeErr == nil {
-			r.writeErr = fmt.Errorf("store point %d: %w", p.Seq, err)
-			// The runner pauses before its next point.
-			r.pauseSet, r.pauseReq = true, fmt.Sprintf("store write failed at point %d: %v", p.Seq, err)
+			r.writeErr = fmt.Errorf("store write failed at point %d: %w", p.Seq, err)
 		}
-		r.mu.Unlock()
+		r.pmu.Unlock()
 		return
 	}
 	if p.Seq+1 > r.durable {
@@ -210,7 +200,7 @@ func (e *Engine) pointDurable(r *run, p *glissv1.Point, err error) {
 		r.recent = r.recent[:n]
 	}
 	r.recent = append(r.recent, p)
-	r.mu.Unlock()
+	r.pmu.Unlock()
 	e.notify(r.rec.Id)
 }
 
@@ -219,6 +209,13 @@ func (e *Engine) pointDurable(r *run, p *glissv1.Point, err error) {
 // paused and resumed.
 func (e *Engine) between(ctx context.Context, r *run, last *plan.Target) (stop, held bool) {
 	for {
+		if err := r.takeWriteErr(); err != nil {
+			if !e.hold(ctx, r, err.Error(), last) {
+				return true, held
+			}
+			held = true
+			continue
+		}
 		r.mu.Lock()
 		switch {
 		case r.cancelSet:
@@ -297,9 +294,7 @@ func (e *Engine) hold(ctx context.Context, r *run, reason string, last *plan.Tar
 func (e *Engine) endWith(ctx context.Context, r *run, to glissv1.ScanState, reason string) {
 	_ = e.store.Sync(context.WithoutCancel(ctx))
 	if n, err := e.store.PointCount(r.rec.Id); err == nil {
-		r.mu.Lock()
-		r.durable = n
-		r.mu.Unlock()
+		r.setDurable(n)
 	}
 	r.mu.Lock()
 	defer r.mu.Unlock()

@@ -147,8 +147,8 @@ func (e *Engine) recentFrom(id string, seq uint64) ([]*glissv1.Point, uint64, bo
 	if r == nil {
 		return nil, 0, false
 	}
-	r.mu.Lock()
-	defer r.mu.Unlock()
+	r.pmu.Lock()
+	defer r.pmu.Unlock()
 	if len(r.recent) == 0 || seq < r.recent[0].Seq || seq > r.recent[len(r.recent)-1].Seq {
 		return nil, r.durable, true
 	}
