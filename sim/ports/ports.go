@@ -168,6 +168,7 @@ type port struct {
 
 	txFree time.Time // wire emulation: when the device's transmitter is idle
 	rxFree time.Time
+	pace   pacer
 }
 
 func (p *port) open() error {
@@ -323,27 +324,35 @@ func (p *port) send(m *os.File, b []byte, notBefore time.Time) error {
 			start = notBefore
 		}
 		p.txFree = start.Add(time.Duration(len(b)) * p.byteTime)
-		sleepUntil(p.txFree)
+		p.pace.until(p.txFree)
 	}
 	_, err := m.Write(b)
 	return err
 }
 
-// spinMargin is the part of a wire-time wait spent yielding instead of
-// sleeping: timer wake-ups on this kind of machine come 200–400 µs late
-// (measured), more than 4 byte times at 115200 baud (87 µs each).
-const spinMargin = 600 * time.Microsecond
+// pacer waits until given instants more precisely than a timer alone:
+// timer wake-ups on this kind of machine come 200–400 µs late (measured),
+// several byte times at 115200 baud (87 µs each). It keeps a running
+// estimate of that lateness, sleeps until the estimate (plus a guard)
+// before the instant, and yields for the rest: CPU is spent only for that
+// remainder, and only while wire time is emulated.
+type pacer struct{ late time.Duration }
 
-// sleepUntil waits until t: a timer sleep up to spinMargin before it, then
-// yielding. It costs CPU only while wire time is emulated.
-func sleepUntil(t time.Time) {
+const pacerGuard = 100 * time.Microsecond
+
+func (pc *pacer) until(t time.Time) {
 	for {
 		d := time.Until(t)
 		if d <= 0 {
 			return
 		}
-		if d > spinMargin+100*time.Microsecond {
-			time.Sleep(d - spinMargin)
+		margin := pc.late + pacerGuard
+		if d > margin+50*time.Microsecond {
+			want := d - margin
+			t0 := time.Now()
+			time.Sleep(want)
+			lateness := time.Since(t0) - want
+			pc.late = (7*pc.late + max(lateness, 0)) / 8
 			continue
 		}
 		for time.Now().Before(t) {

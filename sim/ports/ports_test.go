@@ -5,6 +5,7 @@ import (
 	"errors"
 	"math"
 	"strings"
+	"syscall"
 	"testing"
 	"time"
 
@@ -274,6 +275,8 @@ func BenchmarkWireTime115200(b *testing.B) {
 	if got, err := l.Exchange(ctx, tx); err != nil || len(got)+1 != 16 {
 		b.Fatalf("%q, %v", got, err)
 	}
+	var ru0, ru1 syscall.Rusage
+	syscall.Getrusage(syscall.RUSAGE_SELF, &ru0)
 	b.ResetTimer()
 	t0 := time.Now()
 	for i := 0; i < b.N; i++ {
@@ -282,6 +285,10 @@ func BenchmarkWireTime115200(b *testing.B) {
 		}
 	}
 	el := time.Since(t0).Seconds()
+	syscall.Getrusage(syscall.RUSAGE_SELF, &ru1)
+	cpu := time.Duration(ru1.Utime.Nano()+ru1.Stime.Nano()-ru0.Utime.Nano()-ru0.Stime.Nano()) * time.Nanosecond
+	// CPU of both ends (driver and virtual device run in this process).
+	b.ReportMetric(float64(cpu.Microseconds())/float64(b.N), "cpu_µs/tx")
 	limit := float64(baud) / 10 / 26
 	rate := float64(b.N) / el
 	b.ReportMetric(rate, "tx/s")
