@@ -82,8 +82,13 @@ func mapCounts(t *testing.T, b *drivers.Bench) (counts [][]uint64, powers []floa
 }
 
 func TestSameCountsThroughPortsAndInProcess(t *testing.T) {
-	sim := simbench.Options{Seed: 42, Instant: true}
-	s := start(t, Options{Sim: sim})
+	t.Run("instant", func(t *testing.T) { sameCounts(t, simbench.Options{Seed: 42, Instant: true}, 0) })
+	// Timed motion (500× real time) and the wire time of 115200 baud.
+	t.Run("timed", func(t *testing.T) { sameCounts(t, simbench.Options{Seed: 43, Speed: 500}, 115200) })
+}
+
+func sameCounts(t *testing.T, sim simbench.Options, baud int) {
+	s := start(t, Options{Sim: sim, Baud: baud})
 	viaPorts := load(t, s)
 	inProc, err := simbench.New(sim)
 	if err != nil {
