@@ -48,6 +48,32 @@ var commandedColumns = []struct {
 	{"temperature_k", func(c *glissv1.Commanded) *float64 { return c.TemperatureK }},
 }
 
+// commandedUsed lists the commanded quantities a scan sets: those of its
+// axes and fixed settings, in physical and raw units (a GDD axis also
+// commands stage_mm, a power axis angle_deg, and the reverse).
+func commandedUsed(sc *glissv1.Scan) map[string]bool {
+	used := map[string]bool{}
+	mark := func(k glissv1.AxisKind) {
+		switch k {
+		case glissv1.AxisKind_AXIS_KIND_GDD_PS2, glissv1.AxisKind_AXIS_KIND_STAGE_MM:
+			used["gdd_ps2"], used["stage_mm"] = true, true
+		case glissv1.AxisKind_AXIS_KIND_POWER_UW, glissv1.AxisKind_AXIS_KIND_ANGLE_DEG, glissv1.AxisKind_AXIS_KIND_PULSE_AREA_PI:
+			used["power_uw"], used["angle_deg"] = true, true
+		case glissv1.AxisKind_AXIS_KIND_DETUNING_MEV:
+			used["detuning_mev"] = true
+		case glissv1.AxisKind_AXIS_KIND_TEMPERATURE_K:
+			used["temperature_k"] = true
+		}
+	}
+	for _, a := range sc.GetSpec().GetAxes() {
+		mark(a.GetKind())
+	}
+	for _, f := range sc.GetSpec().GetFixed() {
+		mark(f.GetKind())
+	}
+	return used
+}
+
 // CSVHeader is the header of a scan's CSV export: seq, one column per axis
 // in its unit, the other commanded quantities (physical and raw units),
 // measured_power_uw, counts per channel, gate_ms, started_at, finished_at.
@@ -59,8 +85,9 @@ func CSVHeader(sc *glissv1.Scan) []string {
 		h = append(h, c)
 		have[c] = true
 	}
+	used := commandedUsed(sc)
 	for _, c := range commandedColumns {
-		if !have[c.name] {
+		if !have[c.name] && used[c.name] {
 			h = append(h, c.name)
 		}
 	}
@@ -103,8 +130,9 @@ func CSVRow(sc *glissv1.Scan, p *glissv1.Point) []string {
 	if cmd == nil {
 		cmd = &glissv1.Commanded{}
 	}
+	used := commandedUsed(sc)
 	for _, c := range commandedColumns {
-		if !have[c.name] {
+		if !have[c.name] && used[c.name] {
 			row = append(row, fmtOpt(c.get(cmd)))
 		}
 	}

@@ -336,6 +336,7 @@ func valueField(a *glissv1.Axis, j int) string {
 // spaced returns n values from a to b; amplitude spacing is linear in √P.
 func spaced(a, b float64, n int, amplitude bool) []float64 {
 	out := make([]float64, n)
+	a0, b0 := a, b
 	if amplitude {
 		a, b = math.Sqrt(a), math.Sqrt(b)
 	}
@@ -351,13 +352,10 @@ func spaced(a, b float64, n int, amplitude bool) []float64 {
 		}
 		out[i] = x
 	}
+	// Hit the end points exactly (√P² is not always P in floating point).
+	out[0] = a0
 	if n > 1 {
-		// Hit the end points exactly.
-		if amplitude {
-			out[n-1] = b * b
-		} else {
-			out[n-1] = b
-		}
+		out[n-1] = b0
 	}
 	return out
 }
