@@ -3,16 +3,18 @@ package benchfile
 import (
 	"context"
 	"errors"
+	"log/slog"
 	"os"
 	"path/filepath"
 	"regexp"
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/gliss-lab/gliss/drivers"
 	"github.com/gliss-lab/gliss/drivers/benchfile/yamlnode"
 	"github.com/gliss-lab/gliss/drivers/lineproto"
-	_ "github.com/gliss-lab/gliss/sim/bench" // the "sim" driver
+	simbench "github.com/gliss-lab/gliss/sim/bench" // and its "sim" driver
 )
 
 func TestExampleParses(t *testing.T) {
@@ -195,4 +197,40 @@ func FuzzParse(f *testing.F) {
 			}
 		}
 	})
+}
+
+// The example's sim entries make the same bench as sim/bench.New: same
+// seed, same command sequence, same counts.
+func TestExampleIsTheBuiltInSimBench(t *testing.T) {
+	text := strings.ReplaceAll(Example, "{bench: demo, seed: 1}", "{bench: example-test, seed: 1, instant: true}")
+	path := filepath.Join(t.TempDir(), "sim.yaml")
+	os.WriteFile(path, []byte(text), 0o644)
+	ctx := context.Background()
+	fromFile, err := Load(ctx, path, Options{Logger: slog.New(slog.DiscardHandler)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer fromFile.Close()
+	builtIn, err := simbench.New(simbench.Options{Seed: 1, Instant: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer builtIn.Close()
+	var got [2][]uint64
+	for i, b := range []*drivers.Bench{fromFile, builtIn} {
+		if err := b.Stage().MoveToMM(ctx, 620); err != nil {
+			t.Fatal(err)
+		}
+		if err := b.Attenuator().SetAngleDeg(ctx, 20); err != nil {
+			t.Fatal(err)
+		}
+		c, err := b.Counter().Count(ctx, 50*time.Millisecond)
+		if err != nil {
+			t.Fatal(err)
+		}
+		got[i] = c
+	}
+	if got[0][0] != got[1][0] || got[0][1] != got[1][1] || got[0][0] == 0 {
+		t.Fatalf("counts from the example bench file %v, from sim/bench.New %v", got[0], got[1])
+	}
 }
