@@ -93,6 +93,13 @@ type Thermometer interface {
 	SetSetpointK(ctx context.Context, k float64) error
 }
 
+// Stabilizer is implemented by thermometers that can wait until the sample
+// temperature is stable: within ±tolK of setpointK for hold, giving up
+// after timeout with an error that says why (the scan pauses with it).
+type Stabilizer interface {
+	WaitStableK(ctx context.Context, setpointK, tolK float64, hold, timeout time.Duration) error
+}
+
 // ErrUnavailable marks an instrument that does not answer (timeout, vanished
 // port). Callers may retry later; the scan engine pauses on it.
 var ErrUnavailable = errors.New("instrument unavailable")

@@ -65,7 +65,7 @@ func (d *Driver) Open(ctx context.Context, cfg drivers.Config) (drivers.Instrume
 		s.Commands.Wait = &Query{Send: mustTemplate("*OPC?"), Pattern: MustPattern(`^\s*\+?(?P<value>1)\s*$`)}
 	}
 	if s.Identify != "" {
-		id, err := in.query(ctx, "identify", s.Identify, Vars{}, 0)
+		id, err := in.query(ctx, "identify", s.Identify, 0)
 		if err != nil {
 			ex.Close()
 			return nil, err
@@ -170,7 +170,7 @@ func (in *Instrument) Identify(ctx context.Context) (string, error) {
 	if in.s.Identify == "" {
 		return fmt.Sprintf("%s instrument on %s (no identify command configured)", in.s.flavour, in.linkName()), nil
 	}
-	return in.query(ctx, "identify", in.s.Identify, Vars{}, 0)
+	return in.query(ctx, "identify", in.s.Identify, 0)
 }
 
 func (in *Instrument) linkName() string {
@@ -203,7 +203,7 @@ func (in *Instrument) exchange(ctx context.Context, cmd string, reply bool, extr
 // query sends an idempotent query and returns its reply line, retrying
 // with backoff. When the budget is spent the error wraps
 // drivers.ErrUnavailable.
-func (in *Instrument) query(ctx context.Context, what, cmd string, _ Vars, extra time.Duration) (string, error) {
+func (in *Instrument) query(ctx context.Context, what, cmd string, extra time.Duration) (string, error) {
 	return retry(ctx, in, what, func() (string, error) { return in.exchange(ctx, cmd, true, extra) })
 }
 
@@ -263,7 +263,7 @@ func (in *Instrument) checkErrorQueue(ctx context.Context, what, cmd string) err
 	if in.s.ErrorQuery == "" {
 		return nil
 	}
-	got, err := in.query(ctx, what+": error query", in.s.ErrorQuery, Vars{}, 0)
+	got, err := in.query(ctx, what+": error query", in.s.ErrorQuery, 0)
 	if err != nil {
 		return err
 	}

@@ -172,7 +172,7 @@ func (in *Instrument) moveTo(ctx context.Context, ax axis, target float64) error
 			return err
 		}
 		if attempt >= in.s.Retries {
-			return fmt.Errorf("%w: %w", drivers.ErrUnavailable, err)
+			return fmt.Errorf("%d attempts failed: %w: %w", attempt+1, drivers.ErrUnavailable, err)
 		}
 		// The command may or may not have been taken (a lost or garbled
 		// acknowledgement, a refusal by a transient fault): look before

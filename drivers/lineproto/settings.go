@@ -198,6 +198,9 @@ func (s *Settings) CheckRole(d *yamlnode.Decoder, n *yaml.Node, key string, role
 	}{{c.Position, "position"}, {c.Read, "read"}} {
 		valueGroup(q.q, q.name)
 	}
+	if !c.Home.IsZero() && c.Busy == nil && c.Wait == nil && s.flavour != "scpi" {
+		d.Errorf(yamlnode.Child(cn, "home"), yamlnode.Key(ck, "home"), "needs a busy or wait query to know when homing is done")
+	}
 	if c.Busy != nil && (c.Busy.Busy == nil || c.Busy.Ready == nil) {
 		d.Errorf(yamlnode.Child(cn, "busy"), yamlnode.Key(ck, "busy"), "a busy query needs both patterns, busy and ready")
 	}
