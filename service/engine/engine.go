@@ -198,23 +198,38 @@ func (e *Engine) currentTarget() plan.Target {
 	return t
 }
 
+// SubmitOptions are what a submission records beyond its spec.
+type SubmitOptions struct {
+	// ReplayOf is the id of the scan this one replays.
+	ReplayOf string
+	// Calibration is the calibration set the scan uses (recorded in it).
+	Calibration *glissv1.CalibrationRecord
+}
+
 // Submit validates, stores and queues a scan. The error is *plan.Invalid
 // for a bad spec (nothing is stored then).
 func (e *Engine) Submit(ctx context.Context, spec *glissv1.ScanSpec) (*glissv1.Scan, error) {
+	return e.SubmitWith(ctx, spec, SubmitOptions{})
+}
+
+// SubmitWith is Submit with options.
+func (e *Engine) SubmitWith(ctx context.Context, spec *glissv1.ScanSpec, o SubmitOptions) (*glissv1.Scan, error) {
 	p, pv, err := e.Validate(spec)
 	if err != nil {
 		return nil, err
 	}
 	now := e.opts.Now()
 	rec := &glissv1.Scan{
-		Id:        newID(now),
-		Spec:      proto.Clone(spec).(*glissv1.ScanSpec),
-		State:     glissv1.ScanState_SCAN_STATE_QUEUED,
-		Preview:   pv,
-		CreatedAt: timestamppb.New(now),
-		Bench:     e.bench.Name,
-		SimSeed:   e.bench.SimSeed,
-		Reason:    "submitted",
+		Id:          newID(now),
+		Spec:        proto.Clone(spec).(*glissv1.ScanSpec),
+		State:       glissv1.ScanState_SCAN_STATE_QUEUED,
+		Preview:     pv,
+		CreatedAt:   timestamppb.New(now),
+		Bench:       e.bench.Name,
+		SimSeed:     e.bench.SimSeed,
+		ReplayOf:    o.ReplayOf,
+		Calibration: o.Calibration,
+		Reason:      "submitted",
 		Transitions: []*glissv1.Transition{{
 			From: glissv1.ScanState_SCAN_STATE_UNSPECIFIED, To: glissv1.ScanState_SCAN_STATE_QUEUED,
 			At: timestamppb.New(now), Reason: "submitted",

@@ -314,12 +314,12 @@ func (e *Engine) setFixed(ctx context.Context, r *run, last *plan.Target) error 
 	}
 	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout)
 	defer cancel()
-	return e.command(pctx, t, last)
+	return e.command(pctx, r.plan, t, last)
 }
 
 // command sets every instrument whose target changed, in parallel, and
 // returns when all have arrived.
-func (e *Engine) command(ctx context.Context, t plan.Target, last *plan.Target) error {
+func (e *Engine) command(ctx context.Context, pl *plan.Plan, t plan.Target, last *plan.Target) error {
 	g, gctx := errgroup.WithContext(ctx)
 	b := e.bench
 	if t.StageMM != nil && !same(t.StageMM, last.StageMM) {
@@ -355,9 +355,15 @@ func (e *Engine) command(ctx context.Context, t plan.Target, last *plan.Target) 
 	if t.TemperatureK != nil && !same(t.TemperatureK, last.TemperatureK) {
 		th := b.Thermometer()
 		k := *t.TemperatureK
+		name := b.ByRole(drivers.RoleThermometer).Name
 		g.Go(func() error {
 			if err := th.SetSetpointK(gctx, k); err != nil {
-				return fmt.Errorf("thermometer %q: setpoint %.3f K: %w", b.ByRole(drivers.RoleThermometer).Name, k, err)
+				return fmt.Errorf("thermometer %q: setpoint %.3f K: %w", name, k, err)
+			}
+			if st, ok := th.(drivers.Stabilizer); ok && pl != nil {
+				if err := st.WaitStableK(gctx, k, pl.TempToleranceK, pl.TempHold, pl.TempTimeout); err != nil {
+					return fmt.Errorf("thermometer %q: %w", name, err)
+				}
 			}
 			return nil
 		})
@@ -384,7 +390,7 @@ func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *plan.Tar
 	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout+r.plan.Gate+r.plan.Settle)
 	defer cancel()
 	started := e.opts.Now()
-	if err := e.command(pctx, t, last); err != nil {
+	if err := e.command(pctx, r.plan, t, last); err != nil {
 		return nil, err
 	}
 	if r.plan.Settle > 0 {

@@ -80,6 +80,11 @@ type Plan struct {
 	Fixed Target
 	// Points is the planned number of points.
 	Points uint64
+	// Temperature stability after each new setpoint (temperature axes and
+	// setpoints): within ± TempToleranceK for TempHold, at most TempTimeout.
+	TempToleranceK float64
+	TempHold       time.Duration
+	TempTimeout    time.Duration
 
 	cal    drivers.Calibration
 	limits benchLimits
@@ -197,6 +202,26 @@ func New(spec *glissv1.ScanSpec, b *drivers.Bench) (*Plan, error) {
 		inv.add("spec.settle_ms", "settle %v ms: must be ≥ 0 and ≤ %d ms", s, MaxSettleMS)
 	} else {
 		p.Settle = time.Duration(s * float64(time.Millisecond))
+	}
+	p.TempToleranceK, p.TempHold, p.TempTimeout = 0.05, 30*time.Second, 30*time.Minute
+	for _, tf := range []struct {
+		field string
+		v     *float64
+		max   float64
+		set   func(float64)
+	}{
+		{"spec.temperature_tolerance_k", spec.TemperatureToleranceK, 10, func(v float64) { p.TempToleranceK = v }},
+		{"spec.temperature_hold_s", spec.TemperatureHoldS, 3600, func(v float64) { p.TempHold = time.Duration(v * float64(time.Second)) }},
+		{"spec.temperature_timeout_s", spec.TemperatureTimeoutS, 86400, func(v float64) { p.TempTimeout = time.Duration(v * float64(time.Second)) }},
+	} {
+		if tf.v == nil {
+			continue
+		}
+		if v := *tf.v; math.IsNaN(v) || v <= 0 || v > tf.max {
+			inv.add(tf.field, "%v: must be > 0 and ≤ %g", v, tf.max)
+		} else {
+			tf.set(v)
+		}
 	}
 	if !p.limits.hasCounter {
 		inv.add("spec", "the bench %q has no counter: nothing to acquire", b.Name)

@@ -150,6 +150,8 @@ func TestBadSpecs(t *testing.T) {
 		{"fixed on a swept instrument", &glissv1.ScanSpec{GateMs: 1, Axes: []*glissv1.Axis{gdd(0, 1, 2)}, Fixed: []*glissv1.Setpoint{{Kind: glissv1.AxisKind_AXIS_KIND_STAGE_MM, Value: 600}}}, "spec.fixed[0].kind"},
 		{"fixed out of range", &glissv1.ScanSpec{GateMs: 1, Axes: []*glissv1.Axis{gdd(0, 1, 2)}, Fixed: []*glissv1.Setpoint{{Kind: glissv1.AxisKind_AXIS_KIND_POWER_UW, Value: 1e6}}}, "spec.fixed[0].value"},
 		{"too many points", &glissv1.ScanSpec{GateMs: 1, Axes: []*glissv1.Axis{rng(glissv1.AxisKind_AXIS_KIND_STAGE_MM, 0, 1000, 100000), rng(glissv1.AxisKind_AXIS_KIND_ANGLE_DEG, 0, 40, 100000)}}, "spec.axes"},
+		{"zero temperature tolerance", &glissv1.ScanSpec{GateMs: 1, Axes: []*glissv1.Axis{gdd(0, 1, 2)}, TemperatureToleranceK: ptr(0)}, "spec.temperature_tolerance_k"},
+		{"negative hold", &glissv1.ScanSpec{GateMs: 1, Axes: []*glissv1.Axis{gdd(0, 1, 2)}, TemperatureHoldS: ptr(-1)}, "spec.temperature_hold_s"},
 		{"pulse area without calibration", &glissv1.ScanSpec{GateMs: 1, Axes: []*glissv1.Axis{rng(glissv1.AxisKind_AXIS_KIND_PULSE_AREA_PI, 0, 1, 2)}}, "spec.axes[0].range.from"},
 	}
 	for _, c := range cases {

@@ -497,9 +497,17 @@ type ScanSpec struct {
 	// Fixed settings for quantities not swept.
 	Fixed []*Setpoint `protobuf:"bytes,6,rep,name=fixed,proto3" json:"fixed,omitempty"`
 	// Free notes stored with the scan.
-	Notes         string `protobuf:"bytes,7,opt,name=notes,proto3" json:"notes,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	Notes string `protobuf:"bytes,7,opt,name=notes,proto3" json:"notes,omitempty"`
+	// Temperature axis or setpoint: after each new setpoint, wait until the
+	// sample temperature stays within ± temperature_tolerance_k of it for
+	// temperature_hold_s, for at most temperature_timeout_s (then the scan
+	// pauses with the reason). Defaults when absent: 0.05 K, 30 s, 1800 s;
+	// given, each must be > 0.
+	TemperatureToleranceK *float64 `protobuf:"fixed64,8,opt,name=temperature_tolerance_k,json=temperatureToleranceK,proto3,oneof" json:"temperature_tolerance_k,omitempty"`
+	TemperatureHoldS      *float64 `protobuf:"fixed64,9,opt,name=temperature_hold_s,json=temperatureHoldS,proto3,oneof" json:"temperature_hold_s,omitempty"`
+	TemperatureTimeoutS   *float64 `protobuf:"fixed64,10,opt,name=temperature_timeout_s,json=temperatureTimeoutS,proto3,oneof" json:"temperature_timeout_s,omitempty"`
+	unknownFields         protoimpl.UnknownFields
+	sizeCache             protoimpl.SizeCache
 }
 
 func (x *ScanSpec) Reset() {
@@ -579,6 +587,27 @@ func (x *ScanSpec) GetNotes() string {
 		return x.Notes
 	}
 	return ""
+}
+
+func (x *ScanSpec) GetTemperatureToleranceK() float64 {
+	if x != nil && x.TemperatureToleranceK != nil {
+		return *x.TemperatureToleranceK
+	}
+	return 0
+}
+
+func (x *ScanSpec) GetTemperatureHoldS() float64 {
+	if x != nil && x.TemperatureHoldS != nil {
+		return *x.TemperatureHoldS
+	}
+	return 0
+}
+
+func (x *ScanSpec) GetTemperatureTimeoutS() float64 {
+	if x != nil && x.TemperatureTimeoutS != nil {
+		return *x.TemperatureTimeoutS
+	}
+	return 0
 }
 
 // Preview is what a scan will cost, computed at submit time.
@@ -757,7 +786,9 @@ type Scan struct {
 	// Id of the scan this one replays, if it is a replay.
 	ReplayOf string `protobuf:"bytes,13,opt,name=replay_of,json=replayOf,proto3" json:"replay_of,omitempty"`
 	// Seed of the simulated bench, when it ran on one.
-	SimSeed       uint64 `protobuf:"varint,14,opt,name=sim_seed,json=simSeed,proto3" json:"sim_seed,omitempty"`
+	SimSeed uint64 `protobuf:"varint,14,opt,name=sim_seed,json=simSeed,proto3" json:"sim_seed,omitempty"`
+	// The calibration set the scan used (stretcher, attenuator, pulse area).
+	Calibration   *CalibrationRecord `protobuf:"bytes,15,opt,name=calibration,proto3" json:"calibration,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -888,6 +919,13 @@ func (x *Scan) GetSimSeed() uint64 {
 		return x.SimSeed
 	}
 	return 0
+}
+
+func (x *Scan) GetCalibration() *CalibrationRecord {
+	if x != nil {
+		return x.Calibration
+	}
+	return nil
 }
 
 // Commanded holds what was commanded at a point, in physical and raw units.
@@ -1808,7 +1846,7 @@ var File_gliss_v1_scan_proto protoreflect.FileDescriptor
 
 const file_gliss_v1_scan_proto_rawDesc = "" +
 	"\n" +
-	"\x13gliss/v1/scan.proto\x12\bgliss.v1\x1a\x1fgoogle/protobuf/timestamp.proto\"A\n" +
+	"\x13gliss/v1/scan.proto\x12\bgliss.v1\x1a\x1fgoogle/protobuf/timestamp.proto\x1a\x1agliss/v1/calibration.proto\"A\n" +
 	"\x05Range\x12\x12\n" +
 	"\x04from\x18\x01 \x01(\x01R\x04from\x12\x0e\n" +
 	"\x02to\x18\x02 \x01(\x01R\x02to\x12\x14\n" +
@@ -1823,7 +1861,7 @@ const file_gliss_v1_scan_proto_rawDesc = "" +
 	"\x06values\"H\n" +
 	"\bSetpoint\x12&\n" +
 	"\x04kind\x18\x01 \x01(\x0e2\x12.gliss.v1.AxisKindR\x04kind\x12\x14\n" +
-	"\x05value\x18\x02 \x01(\x01R\x05value\"\xce\x01\n" +
+	"\x05value\x18\x02 \x01(\x01R\x05value\"\xc4\x03\n" +
 	"\bScanSpec\x12\x12\n" +
 	"\x04name\x18\x01 \x01(\tR\x04name\x12\"\n" +
 	"\x04axes\x18\x02 \x03(\v2\x0e.gliss.v1.AxisR\x04axes\x12\x14\n" +
@@ -1831,7 +1869,14 @@ const file_gliss_v1_scan_proto_rawDesc = "" +
 	"\agate_ms\x18\x04 \x01(\x01R\x06gateMs\x12\x1b\n" +
 	"\tsettle_ms\x18\x05 \x01(\x01R\bsettleMs\x12(\n" +
 	"\x05fixed\x18\x06 \x03(\v2\x12.gliss.v1.SetpointR\x05fixed\x12\x14\n" +
-	"\x05notes\x18\a \x01(\tR\x05notes\"\xbf\x01\n" +
+	"\x05notes\x18\a \x01(\tR\x05notes\x12;\n" +
+	"\x17temperature_tolerance_k\x18\b \x01(\x01H\x00R\x15temperatureToleranceK\x88\x01\x01\x121\n" +
+	"\x12temperature_hold_s\x18\t \x01(\x01H\x01R\x10temperatureHoldS\x88\x01\x01\x127\n" +
+	"\x15temperature_timeout_s\x18\n" +
+	" \x01(\x01H\x02R\x13temperatureTimeoutS\x88\x01\x01B\x1a\n" +
+	"\x18_temperature_tolerance_kB\x15\n" +
+	"\x13_temperature_hold_sB\x18\n" +
+	"\x16_temperature_timeout_s\"\xbf\x01\n" +
 	"\aPreview\x12\x16\n" +
 	"\x06points\x18\x01 \x01(\x04R\x06points\x120\n" +
 	"\x14estimated_duration_s\x18\x02 \x01(\x01R\x12estimatedDurationS\x12&\n" +
@@ -1844,7 +1889,7 @@ const file_gliss_v1_scan_proto_rawDesc = "" +
 	"\x04from\x18\x01 \x01(\x0e2\x13.gliss.v1.ScanStateR\x04from\x12#\n" +
 	"\x02to\x18\x02 \x01(\x0e2\x13.gliss.v1.ScanStateR\x02to\x12*\n" +
 	"\x02at\x18\x03 \x01(\v2\x1a.google.protobuf.TimestampR\x02at\x12\x16\n" +
-	"\x06reason\x18\x04 \x01(\tR\x06reason\"\xa8\x04\n" +
+	"\x06reason\x18\x04 \x01(\tR\x06reason\"\xe7\x04\n" +
 	"\x04Scan\x12\x0e\n" +
 	"\x02id\x18\x01 \x01(\tR\x02id\x12&\n" +
 	"\x04spec\x18\x02 \x01(\v2\x12.gliss.v1.ScanSpecR\x04spec\x12)\n" +
@@ -1863,7 +1908,8 @@ const file_gliss_v1_scan_proto_rawDesc = "" +
 	"\x05bench\x18\v \x01(\tR\x05bench\x12\x1a\n" +
 	"\bchannels\x18\f \x03(\tR\bchannels\x12\x1b\n" +
 	"\treplay_of\x18\r \x01(\tR\breplayOf\x12\x19\n" +
-	"\bsim_seed\x18\x0e \x01(\x04R\asimSeed\"\xb4\x02\n" +
+	"\bsim_seed\x18\x0e \x01(\x04R\asimSeed\x12=\n" +
+	"\vcalibration\x18\x0f \x01(\v2\x1b.gliss.v1.CalibrationRecordR\vcalibration\"\xb4\x02\n" +
 	"\tCommanded\x12\x1e\n" +
 	"\bstage_mm\x18\x01 \x01(\x01H\x00R\astageMm\x88\x01\x01\x12\x1c\n" +
 	"\agdd_ps2\x18\x02 \x01(\x01H\x01R\x06gddPs2\x88\x01\x01\x12 \n" +
@@ -2013,6 +2059,7 @@ var file_gliss_v1_scan_proto_goTypes = []any{
 	(*ResumeScanRequest)(nil),     // 23: gliss.v1.ResumeScanRequest
 	(*CancelScanRequest)(nil),     // 24: gliss.v1.CancelScanRequest
 	(*timestamppb.Timestamp)(nil), // 25: google.protobuf.Timestamp
+	(*CalibrationRecord)(nil),     // 26: gliss.v1.CalibrationRecord
 }
 var file_gliss_v1_scan_proto_depIdxs = []int32{
 	0,  // 0: gliss.v1.Axis.kind:type_name -> gliss.v1.AxisKind
@@ -2032,38 +2079,39 @@ var file_gliss_v1_scan_proto_depIdxs = []int32{
 	25, // 14: gliss.v1.Scan.started_at:type_name -> google.protobuf.Timestamp
 	25, // 15: gliss.v1.Scan.finished_at:type_name -> google.protobuf.Timestamp
 	9,  // 16: gliss.v1.Scan.transitions:type_name -> gliss.v1.Transition
-	11, // 17: gliss.v1.Point.commanded:type_name -> gliss.v1.Commanded
-	25, // 18: gliss.v1.Point.started_at:type_name -> google.protobuf.Timestamp
-	25, // 19: gliss.v1.Point.finished_at:type_name -> google.protobuf.Timestamp
-	25, // 20: gliss.v1.LogLine.at:type_name -> google.protobuf.Timestamp
-	10, // 21: gliss.v1.ScanEvent.scan:type_name -> gliss.v1.Scan
-	12, // 22: gliss.v1.ScanEvent.point:type_name -> gliss.v1.Point
-	13, // 23: gliss.v1.ScanEvent.log:type_name -> gliss.v1.LogLine
-	7,  // 24: gliss.v1.SubmitScanRequest.spec:type_name -> gliss.v1.ScanSpec
-	10, // 25: gliss.v1.SubmitScanResponse.scan:type_name -> gliss.v1.Scan
-	2,  // 26: gliss.v1.ListScansRequest.states:type_name -> gliss.v1.ScanState
-	10, // 27: gliss.v1.ListScansResponse.scans:type_name -> gliss.v1.Scan
-	15, // 28: gliss.v1.ScanService.SubmitScan:input_type -> gliss.v1.SubmitScanRequest
-	17, // 29: gliss.v1.ScanService.GetScan:input_type -> gliss.v1.GetScanRequest
-	18, // 30: gliss.v1.ScanService.ListScans:input_type -> gliss.v1.ListScansRequest
-	20, // 31: gliss.v1.ScanService.WatchScan:input_type -> gliss.v1.WatchScanRequest
-	21, // 32: gliss.v1.ScanService.ReadPoints:input_type -> gliss.v1.ReadPointsRequest
-	22, // 33: gliss.v1.ScanService.PauseScan:input_type -> gliss.v1.PauseScanRequest
-	23, // 34: gliss.v1.ScanService.ResumeScan:input_type -> gliss.v1.ResumeScanRequest
-	24, // 35: gliss.v1.ScanService.CancelScan:input_type -> gliss.v1.CancelScanRequest
-	16, // 36: gliss.v1.ScanService.SubmitScan:output_type -> gliss.v1.SubmitScanResponse
-	10, // 37: gliss.v1.ScanService.GetScan:output_type -> gliss.v1.Scan
-	19, // 38: gliss.v1.ScanService.ListScans:output_type -> gliss.v1.ListScansResponse
-	14, // 39: gliss.v1.ScanService.WatchScan:output_type -> gliss.v1.ScanEvent
-	12, // 40: gliss.v1.ScanService.ReadPoints:output_type -> gliss.v1.Point
-	10, // 41: gliss.v1.ScanService.PauseScan:output_type -> gliss.v1.Scan
-	10, // 42: gliss.v1.ScanService.ResumeScan:output_type -> gliss.v1.Scan
-	10, // 43: gliss.v1.ScanService.CancelScan:output_type -> gliss.v1.Scan
-	36, // [36:44] is the sub-list for method output_type
-	28, // [28:36] is the sub-list for method input_type
-	28, // [28:28] is the sub-list for extension type_name
-	28, // [28:28] is the sub-list for extension extendee
-	0,  // [0:28] is the sub-list for field type_name
+	26, // 17: gliss.v1.Scan.calibration:type_name -> gliss.v1.CalibrationRecord
+	11, // 18: gliss.v1.Point.commanded:type_name -> gliss.v1.Commanded
+	25, // 19: gliss.v1.Point.started_at:type_name -> google.protobuf.Timestamp
+	25, // 20: gliss.v1.Point.finished_at:type_name -> google.protobuf.Timestamp
+	25, // 21: gliss.v1.LogLine.at:type_name -> google.protobuf.Timestamp
+	10, // 22: gliss.v1.ScanEvent.scan:type_name -> gliss.v1.Scan
+	12, // 23: gliss.v1.ScanEvent.point:type_name -> gliss.v1.Point
+	13, // 24: gliss.v1.ScanEvent.log:type_name -> gliss.v1.LogLine
+	7,  // 25: gliss.v1.SubmitScanRequest.spec:type_name -> gliss.v1.ScanSpec
+	10, // 26: gliss.v1.SubmitScanResponse.scan:type_name -> gliss.v1.Scan
+	2,  // 27: gliss.v1.ListScansRequest.states:type_name -> gliss.v1.ScanState
+	10, // 28: gliss.v1.ListScansResponse.scans:type_name -> gliss.v1.Scan
+	15, // 29: gliss.v1.ScanService.SubmitScan:input_type -> gliss.v1.SubmitScanRequest
+	17, // 30: gliss.v1.ScanService.GetScan:input_type -> gliss.v1.GetScanRequest
+	18, // 31: gliss.v1.ScanService.ListScans:input_type -> gliss.v1.ListScansRequest
+	20, // 32: gliss.v1.ScanService.WatchScan:input_type -> gliss.v1.WatchScanRequest
+	21, // 33: gliss.v1.ScanService.ReadPoints:input_type -> gliss.v1.ReadPointsRequest
+	22, // 34: gliss.v1.ScanService.PauseScan:input_type -> gliss.v1.PauseScanRequest
+	23, // 35: gliss.v1.ScanService.ResumeScan:input_type -> gliss.v1.ResumeScanRequest
+	24, // 36: gliss.v1.ScanService.CancelScan:input_type -> gliss.v1.CancelScanRequest
+	16, // 37: gliss.v1.ScanService.SubmitScan:output_type -> gliss.v1.SubmitScanResponse
+	10, // 38: gliss.v1.ScanService.GetScan:output_type -> gliss.v1.Scan
+	19, // 39: gliss.v1.ScanService.ListScans:output_type -> gliss.v1.ListScansResponse
+	14, // 40: gliss.v1.ScanService.WatchScan:output_type -> gliss.v1.ScanEvent
+	12, // 41: gliss.v1.ScanService.ReadPoints:output_type -> gliss.v1.Point
+	10, // 42: gliss.v1.ScanService.PauseScan:output_type -> gliss.v1.Scan
+	10, // 43: gliss.v1.ScanService.ResumeScan:output_type -> gliss.v1.Scan
+	10, // 44: gliss.v1.ScanService.CancelScan:output_type -> gliss.v1.Scan
+	37, // [37:45] is the sub-list for method output_type
+	29, // [29:37] is the sub-list for method input_type
+	29, // [29:29] is the sub-list for extension type_name
+	29, // [29:29] is the sub-list for extension extendee
+	0,  // [0:29] is the sub-list for field type_name
 }
 
 func init() { file_gliss_v1_scan_proto_init() }
@@ -2071,10 +2119,12 @@ func file_gliss_v1_scan_proto_init() {
 	if File_gliss_v1_scan_proto != nil {
 		return
 	}
+	file_gliss_v1_calibration_proto_init()
 	file_gliss_v1_scan_proto_msgTypes[2].OneofWrappers = []any{
 		(*Axis_Range)(nil),
 		(*Axis_List)(nil),
 	}
+	file_gliss_v1_scan_proto_msgTypes[4].OneofWrappers = []any{}
 	file_gliss_v1_scan_proto_msgTypes[8].OneofWrappers = []any{}
 	file_gliss_v1_scan_proto_msgTypes[9].OneofWrappers = []any{}
 	file_gliss_v1_scan_proto_msgTypes[11].OneofWrappers = []any{
