@@ -55,3 +55,22 @@ func TestBenchCheckBadFile(t *testing.T) {
 		t.Fatalf("no file: code %d, %s", code, errs)
 	}
 }
+
+func TestBenchProbeReportsAbsentInstrument(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "absent.yaml")
+	os.WriteFile(path, []byte(`bench: b
+instruments:
+  - name: meter
+    role: powermeter
+    driver: lineproto
+    settings:
+      transport: {serial: /dev/serial/by-id/usb-absent-meter-if00, baud: 9600}
+      retries: 0
+      identify: 'ID?'
+      commands: {read: 'PWR?'}
+`), 0o644)
+	out, errs, code := runCLI(t, context.Background(), "bench", "check", path, "--probe")
+	if code != 1 || !strings.Contains(out, "FAILED:") || !strings.Contains(out, "usb-absent-meter-if00") || !strings.Contains(errs, "1 of 1 instruments failed") {
+		t.Fatalf("code %d\n%s%s", code, out, errs)
+	}
+}
