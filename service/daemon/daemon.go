@@ -64,6 +64,7 @@ type Daemon struct {
 	health *health.Server
 	lis    net.Listener
 
+	extra   []func(context.Context) error // stop functions of the services in services.go
 	cancel  context.CancelFunc
 	engDone chan error
 	srvDone chan error
@@ -130,6 +131,13 @@ func Start(ctx context.Context, cfg Config) (*Daemon, error) {
 	)
 	glissv1.RegisterScanServiceServer(srv, &rpc.Scans{Engine: eng})
 	glissv1.RegisterBenchServiceServer(srv, &rpc.Bench{Engine: eng})
+	extra, err := registerServices(ctx, srv, eng, st, b, cfg)
+	if err != nil {
+		lis.Close()
+		b.Close()
+		st.Close()
+		return nil, err
+	}
 	hs := health.NewServer()
 	healthpb.RegisterHealthServer(srv, hs)
 	hs.SetServingStatus("", healthpb.HealthCheckResponse_SERVING)
@@ -138,7 +146,7 @@ func Start(ctx context.Context, cfg Config) (*Daemon, error) {
 	reflection.Register(srv)
 
 	ectx, cancel := context.WithCancel(context.WithoutCancel(ctx))
-	d := &Daemon{Engine: eng, Store: st, Bench: b, log: log, srv: srv, health: hs, lis: lis,
+	d := &Daemon{Engine: eng, Store: st, Bench: b, log: log, srv: srv, health: hs, lis: lis, extra: extra,
 		cancel: cancel, engDone: make(chan error, 1), srvDone: make(chan error, 1)}
 	go func() { d.engDone <- eng.Run(ectx) }()
 	go func() { d.srvDone <- srv.Serve(lis) }()
@@ -195,6 +203,11 @@ func (d *Daemon) Stop(ctx context.Context) error {
 		case <-stopped:
 		case <-time.After(2 * time.Second):
 			d.srv.Stop() // watch streams never end by themselves
+		}
+		for _, stop := range d.extra {
+			if err := stop(ctx); err != nil {
+				errs = append(errs, err)
+			}
 		}
 		if err := d.Store.Close(); err != nil {
 			errs = append(errs, err)
