@@ -74,7 +74,13 @@ type Engine struct {
 	holder string          // "" free, a scan id, or "manual"
 	wake   chan struct{}   // the runner's wake-up (cap 1)
 	subs   map[string]map[chan struct{}]struct{}
+
+	calSource atomic.Pointer[func() *glissv1.CalibrationRecord]
 }
+
+// SetCalibrationSource sets where Submit takes the calibration record that
+// every new scan records (the bench's current calibration set).
+func (e *Engine) SetCalibrationSource(f func() *glissv1.CalibrationRecord) { e.calSource.Store(&f) }
 
 // New makes an engine. Call Recover, then Run.
 func New(b *drivers.Bench, st Store, o Options) *Engine {
@@ -217,6 +223,11 @@ func (e *Engine) SubmitWith(ctx context.Context, spec *glissv1.ScanSpec, o Submi
 	p, pv, err := e.Validate(spec)
 	if err != nil {
 		return nil, err
+	}
+	if o.Calibration == nil {
+		if f := e.calSource.Load(); f != nil {
+			o.Calibration = (*f)()
+		}
 	}
 	now := e.opts.Now()
 	rec := &glissv1.Scan{
