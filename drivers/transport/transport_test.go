@@ -23,7 +23,9 @@ func ptyDevice(t *testing.T, reply func(line string) (string, bool)) (path strin
 		t.Skipf("no pseudo-terminals here: %v", err)
 	}
 	path = s.Name()
-	s.Close()
+	// The slave stays open here too: with no slave open, reads on the
+	// master fail with EIO (Linux), which would end the device early.
+	t.Cleanup(func() { s.Close() })
 	go func() {
 		r := bufio.NewReader(m)
 		for {
@@ -102,6 +104,7 @@ func TestSerialLinkOverPTY(t *testing.T) {
 func TestLinkReconnectsAfterVanish(t *testing.T) {
 	dir := t.TempDir()
 	link := filepath.Join(dir, "stage")
+	var slave *os.File
 	serve := func() *os.File {
 		m, s, err := pty.Open()
 		if err != nil {
@@ -111,7 +114,7 @@ func TestLinkReconnectsAfterVanish(t *testing.T) {
 		if err := os.Symlink(s.Name(), link); err != nil {
 			t.Fatal(err)
 		}
-		s.Close()
+		slave = s // kept open while the port exists (see ptyDevice)
 		go func() {
 			r := bufio.NewReader(m)
 			for {
@@ -132,6 +135,7 @@ func TestLinkReconnectsAfterVanish(t *testing.T) {
 		t.Fatalf("first exchange: %q, %v", got, err)
 	}
 	m.Close() // the port vanishes
+	slave.Close()
 	os.Remove(link)
 	if _, err := l.Exchange(ctx, Tx{Send: "B", Reply: true}); err == nil {
 		t.Fatal("exchange on a vanished port succeeded")
@@ -141,6 +145,7 @@ func TestLinkReconnectsAfterVanish(t *testing.T) {
 	}
 	m = serve() // it comes back under the same stable name
 	defer m.Close()
+	defer slave.Close()
 	if got, err := l.Exchange(ctx, Tx{Send: "C", Reply: true}); err != nil || got != "OK" {
 		t.Fatalf("after the port came back: %q, %v", got, err)
 	}
