@@ -162,15 +162,32 @@ func (in *Instrument) wrap(what string, err error) error {
 // Close releases the link (the last instrument on a port closes it).
 func (in *Instrument) Close() error { return in.ex.Close() }
 
-// Identify returns the identification read at connect, or asks again.
+// Identify asks the instrument who it is (the identify command, live, so
+// that it also tells whether the instrument answers now). Without an
+// identify command it reads the role's position or value instead and
+// describes the link; a counter without one is only described.
 func (in *Instrument) Identify(ctx context.Context) (string, error) {
-	if in.id != "" {
-		return in.id, nil
+	if in.s.Identify != "" {
+		id, err := in.query(ctx, "identify", in.s.Identify, 0)
+		if err == nil {
+			in.id = id
+		}
+		return id, err
 	}
-	if in.s.Identify == "" {
-		return fmt.Sprintf("%s instrument on %s (no identify command configured)", in.s.flavour, in.linkName()), nil
+	desc := fmt.Sprintf("%s %s on %s (no identify command)", in.s.flavour, in.role, in.linkName())
+	var err error
+	switch in.role {
+	case drivers.RoleStage, drivers.RoleAttenuator, drivers.RoleLaser:
+		_, err = in.position(ctx)
+	case drivers.RolePowerMeter:
+		_, err = in.powerUW(ctx)
+	case drivers.RoleThermometer:
+		_, err = in.temperatureK(ctx)
 	}
-	return in.query(ctx, "identify", in.s.Identify, 0)
+	if err != nil {
+		return "", err
+	}
+	return desc, nil
 }
 
 func (in *Instrument) linkName() string {
