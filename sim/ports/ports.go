@@ -14,6 +14,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"runtime"
 	"sort"
 	"strconv"
 	"strings"
@@ -356,7 +357,7 @@ func (pc *pacer) until(t time.Time) {
 			continue
 		}
 		for time.Now().Before(t) {
-			runtimeGosched()
+			runtime.Gosched()
 		}
 		return
 	}

@@ -1,5 +1,0 @@
-package ports
-
-import "runtime"
-
-func runtimeGosched() { runtime.Gosched() }
