@@ -2,6 +2,7 @@ package rpc
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"math"
 	"sort"
@@ -61,8 +62,14 @@ func (s *Bench) describe(ctx context.Context, e *drivers.Entry) *glissv1.Instrum
 		}
 	}
 	lim, st := out.Limits, out.State
-	switch inst := e.Inst.(type) {
-	case drivers.Stage:
+	// By role, not by type: a driver may implement more than one interface.
+	switch e.Role {
+	case drivers.RoleStage:
+		inst, ok := e.Inst.(drivers.Stage)
+		if !ok {
+			fail("role", errRole)
+			break
+		}
 		lim.StageMinMm, lim.StageMaxMm = l.StageMinMM, l.StageMaxMM
 		lim.StageSpeedMmPerS, lim.StageAccelMmPerS2 = l.StageSpeedMMPerS, l.StageAccelMMPerS2
 		g1, e1 := b.Calibration.Stretcher.GDDPS2(l.StageMinMM)
@@ -78,7 +85,12 @@ func (s *Bench) describe(ctx context.Context, e *drivers.Entry) *glissv1.Instrum
 		} else {
 			fail("position", err)
 		}
-	case drivers.Attenuator:
+	case drivers.RoleAttenuator:
+		inst, ok := e.Inst.(drivers.Attenuator)
+		if !ok {
+			fail("role", errRole)
+			break
+		}
 		lim.AngleMinDeg, lim.AngleMaxDeg, lim.RotationSpeedDegPerS = l.AngleMinDeg, l.AngleMaxDeg, l.RotationSpeedDegPerS
 		lim.PowerMinUw, lim.PowerMaxUw = b.Calibration.Attenuator.PMinUW, math.Min(b.Calibration.Attenuator.PMaxUW, nonZero(l.PowerMaxUW))
 		if d, err := inst.AngleDeg(ctx); err == nil {
@@ -88,13 +100,23 @@ func (s *Bench) describe(ctx context.Context, e *drivers.Entry) *glissv1.Instrum
 		} else {
 			fail("angle", err)
 		}
-	case drivers.PowerMeter:
+	case drivers.RolePowerMeter:
+		inst, ok := e.Inst.(drivers.PowerMeter)
+		if !ok {
+			fail("role", errRole)
+			break
+		}
 		if p, err := inst.PowerUW(ctx); err == nil {
 			st.MeasuredPowerUw = &p
 		} else {
 			fail("power", err)
 		}
-	case drivers.Counter:
+	case drivers.RoleCounter:
+		inst, ok := e.Inst.(drivers.Counter)
+		if !ok {
+			fail("role", errRole)
+			break
+		}
 		st.Channels = inst.Channels()
 		chs := make([]string, 0, len(l.CountRateMaxHz))
 		for ch := range l.CountRateMaxHz {
@@ -104,14 +126,24 @@ func (s *Bench) describe(ctx context.Context, e *drivers.Entry) *glissv1.Instrum
 		for _, ch := range chs {
 			lim.CountRateMaxHz = append(lim.CountRateMaxHz, &glissv1.ChannelLimit{Channel: ch, MaxHz: l.CountRateMaxHz[ch]})
 		}
-	case drivers.Laser:
+	case drivers.RoleLaser:
+		inst, ok := e.Inst.(drivers.Laser)
+		if !ok {
+			fail("role", errRole)
+			break
+		}
 		lim.DetuningMinMev, lim.DetuningMaxMev = l.DetuningMinMeV, l.DetuningMaxMeV
 		if d, err := inst.DetuningMeV(ctx); err == nil {
 			st.DetuningMev = &d
 		} else {
 			fail("detuning", err)
 		}
-	case drivers.Thermometer:
+	case drivers.RoleThermometer:
+		inst, ok := e.Inst.(drivers.Thermometer)
+		if !ok {
+			fail("role", errRole)
+			break
+		}
 		lim.TemperatureMinK, lim.TemperatureMaxK = l.TemperatureMinK, l.TemperatureMaxK
 		if k, err := inst.TemperatureK(ctx); err == nil {
 			st.TemperatureK = &k
@@ -121,6 +153,8 @@ func (s *Bench) describe(ctx context.Context, e *drivers.Entry) *glissv1.Instrum
 	}
 	return out
 }
+
+var errRole = errors.New("the driver does not implement the instrument's role")
 
 func nonZero(v float64) float64 {
 	if v <= 0 {
