@@ -3,6 +3,7 @@ package model
 import (
 	"context"
 	"os"
+	"runtime"
 	"strconv"
 	"strings"
 	"testing"
@@ -62,8 +63,27 @@ func BenchmarkMap101WithDecay(b *testing.B) {
 	b.ReportMetric(float64(len(gdd)*len(area))/sec, "points/s")
 }
 
-// BenchmarkMap101Serial is the same map on one goroutine (per-point cost
-// on one core, for the comparison with QuTiP).
+// BenchmarkMap101OneCore is the same map on one core (GOMAXPROCS 1): the
+// cost of a point of the map, for the comparison with QuTiP.
+func BenchmarkMap101OneCore(b *testing.B) {
+	gdd, area := benchMapAxes()
+	base := DemoParams()
+	defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(1))
+	b.ReportAllocs()
+	c0 := cpuTime(b)
+	for b.Loop() {
+		if _, err := Map(context.Background(), base, gdd, AxisAreaPi, area, nil); err != nil {
+			b.Fatal(err)
+		}
+	}
+	n := float64(len(gdd) * len(area))
+	b.ReportMetric(b.Elapsed().Seconds()/float64(b.N)/n, "s/point")
+	b.ReportMetric((cpuTime(b)-c0).Seconds()/float64(b.N)/n, "cpu-s/point")
+	b.ReportMetric(n*float64(b.N)/b.Elapsed().Seconds(), "points/s")
+}
+
+// BenchmarkMap101Serial solves the same map point by point with Solve on
+// one goroutine (no shared step sequences).
 func BenchmarkMap101Serial(b *testing.B) {
 	gdd, area := benchMapAxes()
 	base := DemoParams()

@@ -7,106 +7,79 @@ import "math"
 // arrays of dop853_coef.go (TestToleranceConvergence and the exact-limit
 // tests check the result).
 
-// dopStages computes the stages k[1]…k[11] of the step from t of length h.
-// cEnd receives the coefficients at tn = t + h, shared with the first stage
-// of the next step.
-func (s *Solver) dopStages(t, h, tn float64, cEnd *coef) {
-	y, yt, k := &s.y, &s.ytmp, &s.k
-	var c coef
-	{
+// lane is the state of one integration: the solution, the trial solution,
+// the stage argument and the 12 stages.
+type lane struct {
+	y, ynew, ytmp [nMax]float64
+	k             [12][nMax]float64
+}
+
+// stageArg sets ytmp to the argument of stage i (1…11) of a step of length h.
+func (ln *lane) stageArg(i int, h float64) {
+	y, yt, k := &ln.y, &ln.ytmp, &ln.k
+	switch i {
+	case 1:
 		a0 := h * dopA[1][0]
 		for q := range nMax {
 			yt[q] = y[q] + a0*k[0][q]
 		}
-		s.coefAt(t+dopC[1]*h, &c)
-		s.deriv(&c, yt, &k[1])
-	}
-	{
+	case 2:
 		a0, a1 := h*dopA[2][0], h*dopA[2][1]
 		for q := range nMax {
 			yt[q] = y[q] + a0*k[0][q] + a1*k[1][q]
 		}
-		s.coefAt(t+dopC[2]*h, &c)
-		s.deriv(&c, yt, &k[2])
-	}
-	{
+	case 3:
 		a0, a2 := h*dopA[3][0], h*dopA[3][2]
 		for q := range nMax {
 			yt[q] = y[q] + a0*k[0][q] + a2*k[2][q]
 		}
-		s.coefAt(t+dopC[3]*h, &c)
-		s.deriv(&c, yt, &k[3])
-	}
-	{
+	case 4:
 		a0, a2, a3 := h*dopA[4][0], h*dopA[4][2], h*dopA[4][3]
 		for q := range nMax {
 			yt[q] = y[q] + a0*k[0][q] + a2*k[2][q] + a3*k[3][q]
 		}
-		s.coefAt(t+dopC[4]*h, &c)
-		s.deriv(&c, yt, &k[4])
-	}
-	{
+	case 5:
 		a0, a3, a4 := h*dopA[5][0], h*dopA[5][3], h*dopA[5][4]
 		for q := range nMax {
 			yt[q] = y[q] + a0*k[0][q] + a3*k[3][q] + a4*k[4][q]
 		}
-		s.coefAt(t+dopC[5]*h, &c)
-		s.deriv(&c, yt, &k[5])
-	}
-	{
+	case 6:
 		a0, a3, a4, a5 := h*dopA[6][0], h*dopA[6][3], h*dopA[6][4], h*dopA[6][5]
 		for q := range nMax {
 			yt[q] = y[q] + a0*k[0][q] + a3*k[3][q] + a4*k[4][q] + a5*k[5][q]
 		}
-		s.coefAt(t+dopC[6]*h, &c)
-		s.deriv(&c, yt, &k[6])
-	}
-	{
+	case 7:
 		a0, a3, a4, a5, a6 := h*dopA[7][0], h*dopA[7][3], h*dopA[7][4], h*dopA[7][5], h*dopA[7][6]
 		for q := range nMax {
 			yt[q] = y[q] + a0*k[0][q] + a3*k[3][q] + a4*k[4][q] + a5*k[5][q] + a6*k[6][q]
 		}
-		s.coefAt(t+dopC[7]*h, &c)
-		s.deriv(&c, yt, &k[7])
-	}
-	{
+	case 8:
 		a0, a3, a4, a5, a6, a7 := h*dopA[8][0], h*dopA[8][3], h*dopA[8][4], h*dopA[8][5], h*dopA[8][6], h*dopA[8][7]
 		for q := range nMax {
 			yt[q] = y[q] + a0*k[0][q] + a3*k[3][q] + a4*k[4][q] + a5*k[5][q] + a6*k[6][q] + a7*k[7][q]
 		}
-		s.coefAt(t+dopC[8]*h, &c)
-		s.deriv(&c, yt, &k[8])
-	}
-	{
+	case 9:
 		a0, a3, a4, a5, a6, a7, a8 := h*dopA[9][0], h*dopA[9][3], h*dopA[9][4], h*dopA[9][5], h*dopA[9][6], h*dopA[9][7], h*dopA[9][8]
 		for q := range nMax {
 			yt[q] = y[q] + a0*k[0][q] + a3*k[3][q] + a4*k[4][q] + a5*k[5][q] + a6*k[6][q] + a7*k[7][q] + a8*k[8][q]
 		}
-		s.coefAt(t+dopC[9]*h, &c)
-		s.deriv(&c, yt, &k[9])
-	}
-	{
+	case 10:
 		a0, a3, a4, a5, a6, a7, a8, a9 := h*dopA[10][0], h*dopA[10][3], h*dopA[10][4], h*dopA[10][5], h*dopA[10][6], h*dopA[10][7], h*dopA[10][8], h*dopA[10][9]
 		for q := range nMax {
 			yt[q] = y[q] + a0*k[0][q] + a3*k[3][q] + a4*k[4][q] + a5*k[5][q] + a6*k[6][q] + a7*k[7][q] + a8*k[8][q] + a9*k[9][q]
 		}
-		s.coefAt(t+dopC[10]*h, &c)
-		s.deriv(&c, yt, &k[10])
-	}
-	{
+	case 11:
 		a0, a3, a4, a5, a6, a7, a8, a9, a10 := h*dopA[11][0], h*dopA[11][3], h*dopA[11][4], h*dopA[11][5], h*dopA[11][6], h*dopA[11][7], h*dopA[11][8], h*dopA[11][9], h*dopA[11][10]
 		for q := range nMax {
 			yt[q] = y[q] + a0*k[0][q] + a3*k[3][q] + a4*k[4][q] + a5*k[5][q] + a6*k[6][q] + a7*k[7][q] + a8*k[8][q] + a9*k[9][q] + a10*k[10][q]
 		}
-		s.coefAt(tn, cEnd)
-		s.deriv(cEnd, yt, &k[11])
 	}
 }
 
-// dopCombine forms the 8th-order solution in s.ynew and returns Hairer's
-// error measure of the step (≤ 1 accepts it).
-func (s *Solver) dopCombine(h, tol float64) float64 {
-	y, yn, k := &s.y, &s.ynew, &s.k
+// combine forms the 8th-order solution in ynew and returns Hairer's error
+// measure of the step (≤ 1 accepts it) over the first n components.
+func (ln *lane) combine(h, tol float64, n int) float64 {
+	y, yn, k := &ln.y, &ln.ynew, &ln.k
 	b0, b5, b6, b7, b8, b9, b10, b11 := dopB[0], dopB[5], dopB[6], dopB[7], dopB[8], dopB[9], dopB[10], dopB[11]
 	e0, e5, e6, e7, e8, e9, e10, e11 := dopE5[0], dopE5[5], dopE5[6], dopE5[7], dopE5[8], dopE5[9], dopE5[10], dopE5[11]
 	f0, f5, f6, f7, f8, f9, f10, f11 := dopE3[0], dopE3[5], dopE3[6], dopE3[7], dopE3[8], dopE3[9], dopE3[10], dopE3[11]
@@ -115,7 +88,7 @@ func (s *Solver) dopCombine(h, tol float64) float64 {
 		yn[q] = y[q] + h*(b0*k[0][q]+b5*k[5][q]+b6*k[6][q]+b7*k[7][q]+b8*k[8][q]+b9*k[9][q]+b10*k[10][q]+b11*k[11][q])
 		d5 := e0*k[0][q] + e5*k[5][q] + e6*k[6][q] + e7*k[7][q] + e8*k[8][q] + e9*k[9][q] + e10*k[10][q] + e11*k[11][q]
 		d3 := f0*k[0][q] + f5*k[5][q] + f6*k[6][q] + f7*k[7][q] + f8*k[8][q] + f9*k[9][q] + f10*k[10][q] + f11*k[11][q]
-		sc := tol + tol*max(abs(y[q]), abs(yn[q]))
+		sc := tol + tol*max(math.Abs(y[q]), math.Abs(yn[q]))
 		d5 /= sc
 		d3 /= sc
 		err5 += d5 * d5
@@ -124,9 +97,5 @@ func (s *Solver) dopCombine(h, tol float64) float64 {
 	if err5 == 0 && err3 == 0 {
 		return 0
 	}
-	return h * err5 / sqrt((err5+0.01*err3)*float64(s.n))
+	return h * err5 / math.Sqrt((err5+0.01*err3)*float64(n))
 }
-
-func abs(x float64) float64 { return math.Abs(x) }
-
-func sqrt(x float64) float64 { return math.Sqrt(x) }

@@ -41,8 +41,14 @@ const MapSize = 10_000_000
 // Map computes the model over gddPS2 × values, where values sweep the second
 // axis and the other parameters come from base. Points are in row-major
 // order: index i·len(values)+j is (gddPS2[i], values[j]). The work is spread
-// over runtime.GOMAXPROCS(0) goroutines; each point is a pure function of its
-// parameters, so the result does not depend on the number of workers.
+// over runtime.GOMAXPROCS(0) goroutines in units fixed by the grid, so the
+// result does not depend on the number of workers.
+//
+// On an area axis the points of one GDD are integrated together, up to
+// rowChunk at a time, on one shared step sequence (each meets the
+// tolerance; the transcendental coefficients are shared). Such a point agrees
+// with Solve of the same parameters to the tolerance, not bit for bit. On a
+// detuning axis every point is one Solve.
 // progress (may be nil) is called from Map's goroutine about ten times a
 // second and once at the end, never concurrently.
 func Map(ctx context.Context, base Params, gddPS2 []float64, second Axis, values []float64, progress func(done, total int)) ([]MapPoint, error) {
@@ -72,6 +78,16 @@ func Map(ctx context.Context, base Params, gddPS2 []float64, second Axis, values
 			out[i*len(values)+j] = MapPoint{GDDPS2: g, AreaPi: p.AreaPi, DetuningMeV: p.DetuningMeV}
 		}
 	}
+	// Work units: for an area axis, chunks of up to rowChunk points of one
+	// GDD solved together (solveAreas); for a detuning axis, single points.
+	// The units are fixed by the grid alone, so the result does not depend
+	// on the number of workers.
+	per := 1
+	if second == AxisAreaPi {
+		per = rowChunk
+	}
+	chunksPerRow := (len(values) + per - 1) / per
+	units := len(gddPS2) * chunksPerRow
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
 	var (
@@ -80,28 +96,51 @@ func Map(ctx context.Context, base Params, gddPS2 []float64, second Axis, values
 		errOnce    sync.Once
 		firstErr   error
 	)
-	workers := min(runtime.GOMAXPROCS(0), total)
+	workers := min(runtime.GOMAXPROCS(0), units)
 	for range workers {
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
 			s := NewSolver()
+			var (
+				lanes []lane
+				amps  []float64
+				idx   []int
+				res   []Result
+				areas []float64
+			)
 			for ctx.Err() == nil {
-				k := int(next.Add(1)) - 1
-				if k >= total {
+				u := int(next.Add(1)) - 1
+				if u >= units {
 					return
 				}
-				mp := &out[k]
+				row, c := u/chunksPerRow, u%chunksPerRow
+				lo := row*len(values) + c*per
+				hi := min(lo+per, (row+1)*len(values))
+				pts := out[lo:hi]
 				p := base
-				p.GDDPS2, p.AreaPi, p.DetuningMeV = mp.GDDPS2, mp.AreaPi, mp.DetuningMeV
-				r, err := s.Solve(p)
+				p.GDDPS2 = pts[0].GDDPS2
+				var err error
+				if second == AxisAreaPi {
+					res, areas = res[:0], areas[:0]
+					for _, mp := range pts {
+						areas = append(areas, mp.AreaPi)
+						res = append(res, Result{})
+					}
+					err = s.solveAreas(p, areas, res, &lanes, &amps, &idx)
+					for k := range pts {
+						pts[k].Result = res[k]
+					}
+				} else {
+					p.AreaPi, p.DetuningMeV = pts[0].AreaPi, pts[0].DetuningMeV
+					pts[0].Result, err = s.Solve(p)
+				}
 				if err != nil {
-					errOnce.Do(func() { firstErr = fmt.Errorf("model: map point %d: %w", k, err) })
+					errOnce.Do(func() { firstErr = fmt.Errorf("model: map points %d to %d: %w", lo, hi-1, err) })
 					cancel()
 					return
 				}
-				mp.Result = r
-				done.Add(1)
+				done.Add(int64(len(pts)))
 			}
 		}()
 	}

@@ -40,14 +40,25 @@ func TestMapDeterministic(t *testing.T) {
 			t.Fatalf("point %d: 1 worker %+v, 3 workers %+v", i, m1[i], m3[i])
 		}
 	}
-	p := base
-	p.GDDPS2, p.AreaPi = gdd[4], area[2]
-	r, err := Solve(p)
-	if err != nil {
-		t.Fatal(err)
+	got := m1[4*len(area)+2]
+	if got.GDDPS2 != gdd[4] || got.AreaPi != area[2] {
+		t.Errorf("row-major point (4, 2) is at GDD %g, area %g; want %g, %g", got.GDDPS2, got.AreaPi, gdd[4], area[2])
 	}
-	if got := m1[4*len(area)+2]; got.Result != r || got.GDDPS2 != gdd[4] || got.AreaPi != area[2] {
-		t.Errorf("row-major point (4, 2) = %+v, want %+v at GDD %g, area %g", got, r, gdd[4], area[2])
+	// a map point (shared step sequence) agrees with a single Solve to the
+	// accuracy of the default tolerance
+	s := NewSolver()
+	for i, mp := range m1 {
+		p := base
+		p.GDDPS2, p.AreaPi = mp.GDDPS2, mp.AreaPi
+		r, err := s.Solve(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, d := range []float64{mp.G - r.G, mp.X - r.X, mp.XX - r.XX, mp.NX - r.NX, mp.NXX - r.NXX} {
+			if math.Abs(d) > 1e-6 {
+				t.Fatalf("point %d: map %+v, Solve %+v", i, mp.Result, r)
+			}
+		}
 	}
 }
 
@@ -64,6 +75,11 @@ func TestMapDetuningAxis(t *testing.T) {
 	}
 	if m[0].Result == m[1].Result {
 		t.Error("detuning axis has no effect")
+	}
+	p := DemoParams()
+	p.GDDPS2, p.DetuningMeV = 10, 0.5
+	if r, _ := Solve(p); m[2].Result != r {
+		t.Errorf("detuning map point %+v, Solve %+v", m[2].Result, r)
 	}
 }
 

@@ -60,9 +60,11 @@ type Solver struct {
 	k01h, k12h     float64 // k/2
 	g1, g2         float64 // γ1, γ2
 	d01, d12, d02  float64 // coherence decay rates
-	k              [12][nMax]float64
 	rejected       bool
-	y, ynew, ytmp  [nMax]float64
+	rhsAmp         float64 // envelope scale used by rhs (initial step)
+	lane                   // scratch of the initial step; the state of a single solve
+	single         []lane  // the lane of a single solve
+	one            [1]float64
 	steps, rejects int
 }
 
@@ -108,9 +110,15 @@ func (s *Solver) SolveLadder(l *Ladder, tol float64) (LadderResult, error) {
 		return LadderResult{}, fmt.Errorf("solver: tolerance %g, want 0 < tol < 1", tol)
 	}
 	s.setup(l)
-	if err := s.integrate(l.StartPS, l.EndPS, l.MaxStepPS, tol); err != nil {
+	if s.single == nil {
+		s.single = make([]lane, 1)
+	}
+	s.single[0] = lane{y: s.y}
+	s.one[0] = 1
+	if err := s.integrate(l.StartPS, l.EndPS, l.MaxStepPS, tol, s.single, s.one[:], 0); err != nil {
 		return LadderResult{}, err
 	}
+	s.y = s.single[0].y
 	var r LadderResult
 	s.finish(l.EndPS, &r)
 	r.Steps, r.Rejected = s.steps, s.rejects
@@ -208,9 +216,10 @@ func (s *Solver) coefAt(t float64, c *coef) {
 	c.sv, c.cv = math.Sincos(s.e21*t + 0.5*s.s21*t*t)
 }
 
-// deriv evaluates dy/dt from the coefficients c at the same time.
-func (s *Solver) deriv(c *coef, y, dy *[nMax]float64) {
-	w0, w1 := c.w0, c.w1
+// deriv evaluates dy/dt from the coefficients c at the same time, with the
+// envelope scaled by amp.
+func (s *Solver) deriv(c *coef, amp float64, y, dy *[nMax]float64) {
+	w0, w1 := amp*c.w0, amp*c.w1
 	cs, sn, cv, sv := c.cs, c.sn, c.cv, c.sv
 	if !s.density {
 		// dψ̃0 = i·w0·ψ̃1·ū1
@@ -263,7 +272,7 @@ func (s *Solver) deriv(c *coef, y, dy *[nMax]float64) {
 func (s *Solver) rhs(t float64, y, dy *[nMax]float64) {
 	var c coef
 	s.coefAt(t, &c)
-	s.deriv(&c, y, dy)
+	s.deriv(&c, s.rhsAmp, y, dy)
 }
 
 func (s *Solver) errNorm(y, dy *[nMax]float64, tol float64) float64 {
@@ -302,16 +311,25 @@ func (s *Solver) initialStep(t float64, f0 *[nMax]float64, hmax, tol float64) fl
 	return min(100*h0, h1, hmax)
 }
 
-func (s *Solver) integrate(t0, t1, hmax, tol float64) error {
+// integrate advances every lane from t0 to t1 on one shared step sequence:
+// the step is accepted when the error measure of every lane is ≤ 1, so each
+// lane is at least as accurate as it would be alone. Lane j is driven by
+// amps[j]·Ω(t); first is the lane that sets the initial step (the largest
+// amplitude). The lanes hold the initial state in y and zero stages.
+func (s *Solver) integrate(t0, t1, hmax, tol float64, lanes []lane, amps []float64, first int) error {
 	if hmax <= 0 || hmax > t1-t0 {
 		hmax = t1 - t0
 	}
-	y, yn, k := &s.y, &s.ynew, &s.k
 	t := t0
-	var cEnd coef // coefficients at the current t (first stage)
+	var cEnd coef   // coefficients at the current t (first stage)
+	var cs [12]coef // coefficients at the stage times of a step
 	s.coefAt(t, &cEnd)
-	s.deriv(&cEnd, y, &k[0])
-	h := s.initialStep(t, &k[0], hmax, tol)
+	for j := range lanes {
+		s.deriv(&cEnd, amps[j], &lanes[j].y, &lanes[j].k[0])
+	}
+	s.y = lanes[first].y
+	s.rhsAmp = amps[first]
+	h := s.initialStep(t, &lanes[first].k[0], hmax, tol)
 	for {
 		if s.steps+s.rejects > maxSteps {
 			return fmt.Errorf("%w: %d steps reached at t = %g ps of [%g, %g]", ErrTooManySteps, maxSteps, t, t0, t1)
@@ -325,17 +343,37 @@ func (s *Solver) integrate(t0, t1, hmax, tol float64) error {
 		if last {
 			tn = t1
 		}
-		s.dopStages(t, h, tn, &cEnd)
-		errv := s.dopCombine(h, tol)
+		// the coefficients of all stage times first: independent of the
+		// state, they form eleven independent chains of transcendental
+		// functions that the processor overlaps
+		for i := 1; i < 11; i++ {
+			s.coefAt(t+dopC[i]*h, &cs[i])
+		}
+		s.coefAt(tn, &cEnd)
+		cs[11] = cEnd
+		for i := 1; i < 12; i++ {
+			for j := range lanes {
+				ln := &lanes[j]
+				ln.stageArg(i, h)
+				s.deriv(&cs[i], amps[j], &ln.ytmp, &ln.k[i])
+			}
+		}
+		var errv float64
+		for j := range lanes {
+			errv = max(errv, lanes[j].combine(h, tol, s.n))
+		}
 		fac11 := math.Pow(errv, ctlExpo)
 		fac := max(ctlFacc2, min(ctlFacc1, fac11/ctlSafe))
 		if errv <= 1 {
 			s.steps++
 			t = tn
-			*y = *yn
 			// first stage of the next step: f(t+h, y_new), sharing the
 			// coefficients of the last stage
-			s.deriv(&cEnd, y, &k[0])
+			for j := range lanes {
+				ln := &lanes[j]
+				ln.y = ln.ynew
+				s.deriv(&cEnd, amps[j], &ln.y, &ln.k[0])
+			}
 			if last {
 				return nil
 			}
@@ -349,7 +387,7 @@ func (s *Solver) integrate(t0, t1, hmax, tol float64) error {
 			s.rejects++
 			s.rejected = true
 			h /= min(ctlFacc1, fac11/ctlSafe)
-			// k[0] and cEnd must stay those of t: recompute cEnd
+			// cEnd must stay the coefficients of t
 			s.coefAt(t, &cEnd)
 			if t+h == t {
 				return fmt.Errorf("solver: step size underflow at t = %g ps", t)
