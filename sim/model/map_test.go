@@ -143,3 +143,34 @@ func TestLinspace(t *testing.T) {
 		t.Errorf("Linspace(3, 9, 1) = %v, want [3]", v)
 	}
 }
+
+// TestMapAccuracy: map points (shared step sequences) are within 1e-6 of
+// solves at tolerance 1e-12, on rows that include the hardest point found by
+// TestDefaultToleranceAccuracy (short pulse, strong chirp, detuned).
+func TestMapAccuracy(t *testing.T) {
+	base := DemoParams()
+	base.FWHMPS, base.DetuningMeV = 1.88, -0.27
+	gdd := []float64{-29.5, 0, 20}
+	area := Linspace(0, 14, 29)
+	m, err := Map(context.Background(), base, gdd, AxisAreaPi, area, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := NewSolver()
+	worst := 0.0
+	for _, mp := range m {
+		p := base
+		p.GDDPS2, p.AreaPi, p.Tolerance = mp.GDDPS2, mp.AreaPi, 1e-12
+		r, err := s.Solve(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, d := range []float64{mp.G - r.G, mp.X - r.X, mp.XX - r.XX, mp.NX - r.NX, mp.NXX - r.NXX} {
+			worst = max(worst, math.Abs(d))
+		}
+	}
+	t.Logf("largest |map − tol 1e-12| = %.2g", worst)
+	if worst > 1e-6 {
+		t.Errorf("map points off by up to %.2g, want ≤ 1e-6", worst)
+	}
+}
