@@ -3,6 +3,8 @@ package drivers
 import (
 	"errors"
 	"fmt"
+	"math"
+	"sync"
 	"time"
 
 	"github.com/gliss-lab/gliss/drivers/calib"
@@ -41,19 +43,68 @@ type Entry struct {
 	Inst Instrument
 }
 
-// Calibration is the bench's current calibration set.
+// Calibration is one calibration set of a bench.
 type Calibration struct {
 	// Stretcher maps stage mm ↔ GDD ps².
 	Stretcher calib.Stretcher
-	// Attenuator maps angle deg ↔ power µW.
+	// Attenuator maps angle deg ↔ power µW by Malus's law. It is the law in
+	// use when Law is nil (bench files and the simulated bench set it).
 	Attenuator calib.Malus
+	// Law, when set, is the attenuator law in use (Malus or ND wheel) and
+	// takes precedence over Attenuator. Read the law through AttenuatorLaw,
+	// PowerUW, AngleDeg and PowerRangeUW, which honour both fields.
+	Law *calib.Attenuator
+	// PulseArea maps power µW ↔ pulse area π; nil until calibrated.
+	PulseArea *calib.PulseArea
+	// Version of the bench's calibration set: 0 is the nominal set of the
+	// bench file or the simulated bench, then 1, 2, … as new ones are put.
+	Version int
+}
+
+// AttenuatorLaw is the attenuator law in use.
+func (c Calibration) AttenuatorLaw() calib.Attenuator {
+	if c.Law != nil {
+		return *c.Law
+	}
+	m := c.Attenuator
+	return calib.Attenuator{Malus: &m}
+}
+
+// PowerUW is the power at attenuator angle deg by the law in use.
+func (c Calibration) PowerUW(deg float64) (float64, error) { return c.AttenuatorLaw().PowerUW(deg) }
+
+// AngleDeg is the attenuator angle that gives power uw by the law in use.
+func (c Calibration) AngleDeg(uw float64) (float64, error) { return c.AttenuatorLaw().AngleDeg(uw) }
+
+// PowerRangeUW is the range of powers the law in use can give (for an ND
+// wheel: over its graded sector).
+func (c Calibration) PowerRangeUW() (lo, hi float64) {
+	a := c.AttenuatorLaw()
+	switch {
+	case a.Malus != nil:
+		return a.Malus.PMinUW, a.Malus.PMaxUW
+	case a.ND != nil:
+		lo, hi = a.ND.PowerUW(a.ND.MinDeg), a.ND.PowerUW(a.ND.MaxDeg)
+		return math.Min(lo, hi), math.Max(lo, hi)
+	}
+	return math.NaN(), math.NaN()
+}
+
+// calibrationState holds the calibration set in use, replaced as a whole.
+type calibrationState struct {
+	mu  sync.RWMutex
+	cur *Calibration
 }
 
 // Bench is the configured set of instruments, opened.
 type Bench struct {
 	// Name of the bench ("sim" for the built-in simulated bench).
-	Name        string
-	Entries     []*Entry
+	Name    string
+	Entries []*Entry
+	// Calibration is the bench's nominal calibration set (version 0), from
+	// the bench file or the simulated bench. It is not changed once the
+	// bench is open: the set in use is CurrentCalibration, replaced by
+	// SetCalibration when a new version is put.
 	Calibration Calibration
 	// SimSeed is the seed of a simulated bench (0 for real instruments).
 	SimSeed uint64
@@ -61,6 +112,29 @@ type Bench struct {
 	// --sim-speed); the engine divides its own waits (settle) by it. 0 or 1
 	// for real instruments.
 	TimeScale float64
+
+	cal calibrationState
+}
+
+// CurrentCalibration returns the calibration set in use for new scans and
+// commands: the last one given to SetCalibration, else the nominal
+// Calibration. Safe for concurrent use with SetCalibration; a scan keeps
+// the set it was planned with.
+func (b *Bench) CurrentCalibration() Calibration {
+	b.cal.mu.RLock()
+	defer b.cal.mu.RUnlock()
+	if b.cal.cur != nil {
+		return *b.cal.cur
+	}
+	return b.Calibration
+}
+
+// SetCalibration replaces the calibration set in use. The caller hands c
+// over: its pointer fields must not be changed afterwards.
+func (b *Bench) SetCalibration(c Calibration) {
+	b.cal.mu.Lock()
+	b.cal.cur = &c
+	b.cal.mu.Unlock()
 }
 
 // Scale converts a real-time wait to the bench's time.
@@ -171,4 +245,39 @@ func (b *Bench) Close() error {
 		}
 	}
 	return errors.Join(errs...)
+}
+
+// Set returns c as a calibration set (schema SetSchema, c.Version; Created
+// and Note left for the caller).
+func (c Calibration) Set() calib.Set {
+	st := c.Stretcher
+	law := c.AttenuatorLaw()
+	s := calib.Set{Schema: calib.SetSchema, Version: c.Version, Stretcher: &st, Attenuator: &law}
+	if c.PulseArea != nil {
+		pa := *c.PulseArea
+		s.PulseArea = &pa
+	}
+	return s
+}
+
+// CalibrationFromSet makes the calibration of set s; a part s lacks is
+// taken from base.
+func CalibrationFromSet(s calib.Set, base Calibration) Calibration {
+	c := base
+	c.Version = s.Version
+	if s.Stretcher != nil {
+		c.Stretcher = *s.Stretcher
+	}
+	if s.Attenuator != nil {
+		law := *s.Attenuator
+		c.Law = &law
+		if law.Malus != nil {
+			c.Attenuator = *law.Malus
+		}
+	}
+	if s.PulseArea != nil {
+		pa := *s.PulseArea
+		c.PulseArea = &pa
+	}
+	return c
 }

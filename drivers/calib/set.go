@@ -23,7 +23,8 @@ const maxSetBytes = 1 << 20
 type Set struct {
 	// Schema is the JSON layout version (SetSchema).
 	Schema int `json:"schema"`
-	// Version of this bench's calibration set, from 1.
+	// Version of this bench's calibration set: 0 is the nominal set (bench
+	// file or simulated bench), then 1, 2, ….
 	Version    int         `json:"version"`
 	Stretcher  *Stretcher  `json:"stretcher,omitempty"`
 	Attenuator *Attenuator `json:"attenuator,omitempty"`
@@ -39,8 +40,8 @@ func (s Set) Validate() error {
 	if s.Schema != SetSchema {
 		return fmt.Errorf("calibration set: schema %d: want %d", s.Schema, SetSchema)
 	}
-	if s.Version < 1 {
-		return fmt.Errorf("calibration set: version %d: want ≥ 1", s.Version)
+	if s.Version < 0 {
+		return fmt.Errorf("calibration set: version %d: want ≥ 0 (0 is the bench's nominal set)", s.Version)
 	}
 	if len(s.Note) > 2000 {
 		return fmt.Errorf("calibration set: note of %d bytes: want ≤ 2000", len(s.Note))

@@ -180,7 +180,7 @@ func New(spec *glissv1.ScanSpec, b *drivers.Bench) (*Plan, error) {
 		inv.add("spec", "missing")
 		return nil, inv
 	}
-	p := &Plan{Snake: spec.GetSnake(), cal: b.Calibration, limits: limitsOf(b)}
+	p := &Plan{Snake: spec.GetSnake(), cal: b.CurrentCalibration(), limits: limitsOf(b)}
 	if len(spec.GetName()) > MaxNameLen {
 		inv.add("spec.name", "%d characters, at most %d allowed", len(spec.GetName()), MaxNameLen)
 	}
@@ -416,21 +416,7 @@ func (p *Plan) checkValue(k glissv1.AxisKind, v float64) string {
 		if !l.hasAtt {
 			return "the bench has no attenuator"
 		}
-		m := p.cal.Attenuator
-		hi := m.PMaxUW
-		if l.att.PowerMaxUW > 0 && l.att.PowerMaxUW < hi {
-			hi = l.att.PowerMaxUW
-		}
-		if v < m.PMinUW || v > hi {
-			return fmt.Sprintf("power %g µW outside the allowed %g–%g µW (attenuator range and the bench's maximum power)", v, m.PMinUW, hi)
-		}
-		deg, err := m.AngleDeg(v)
-		if err != nil {
-			return err.Error()
-		}
-		if msg := p.checkAngle(deg); msg != "" {
-			return fmt.Sprintf("power %g µW: %s", v, msg)
-		}
+		return p.checkPower(v)
 	case glissv1.AxisKind_AXIS_KIND_ANGLE_DEG:
 		if !l.hasAtt {
 			return "the bench has no attenuator"
@@ -438,7 +424,11 @@ func (p *Plan) checkValue(k glissv1.AxisKind, v float64) string {
 		if msg := p.checkAngle(v); msg != "" {
 			return msg
 		}
-		if pw := p.cal.Attenuator.PowerUW(v); l.att.PowerMaxUW > 0 && pw > l.att.PowerMaxUW {
+		pw, err := p.cal.PowerUW(v)
+		if err != nil {
+			return fmt.Sprintf("angle %g°: attenuator calibration: %v", v, err)
+		}
+		if l.att.PowerMaxUW > 0 && pw > l.att.PowerMaxUW {
 			return fmt.Sprintf("angle %g° gives %.4g µW through the attenuator calibration, above the bench's maximum power %g µW", v, pw, l.att.PowerMaxUW)
 		}
 	case glissv1.AxisKind_AXIS_KIND_DETUNING_MEV:
@@ -456,11 +446,58 @@ func (p *Plan) checkValue(k glissv1.AxisKind, v float64) string {
 			return fmt.Sprintf("temperature %g K outside the thermometer's range %g–%g K", v, l.therm.TemperatureMinK, l.therm.TemperatureMaxK)
 		}
 	case glissv1.AxisKind_AXIS_KIND_PULSE_AREA_PI:
-		return "pulse-area axes need a pulse-area calibration, which this bench does not have yet"
+		if !l.hasAtt {
+			return "the bench has no attenuator"
+		}
+		pa := p.cal.PulseArea
+		if pa == nil {
+			return "pulse-area axes need a pulse-area calibration, which this bench does not have yet (gliss calib pulse-area --from-scan ID)"
+		}
+		if v < 0 {
+			return fmt.Sprintf("pulse area %g π: must be ≥ 0", v)
+		}
+		pw := pa.PowerUW(v)
+		if msg := p.checkPower(pw); msg != "" {
+			lo, hi := p.areaRange()
+			return fmt.Sprintf("pulse area %g π needs %.4g µW by the pulse-area calibration (%.4g π/√µW): %s; allowed areas %.4g to %.4g π", v, pw, pa.AreaPiPerSqrtUW, msg, lo, hi)
+		}
 	default:
 		return fmt.Sprintf("unknown kind %v", k)
 	}
 	return ""
+}
+
+// powerRangeUW is the power range allowed by the attenuator calibration and
+// the bench's maximum power.
+func (p *Plan) powerRangeUW() (float64, float64) {
+	lo, hi := p.cal.PowerRangeUW()
+	if m := p.limits.att.PowerMaxUW; m > 0 && m < hi {
+		hi = m
+	}
+	return lo, hi
+}
+
+// checkPower checks a power against the attenuator's range, the bench's
+// maximum power and the angle limits.
+func (p *Plan) checkPower(v float64) string {
+	lo, hi := p.powerRangeUW()
+	if v < lo || v > hi {
+		return fmt.Sprintf("power %g µW outside the allowed %g–%g µW (attenuator range and the bench's maximum power)", v, lo, hi)
+	}
+	deg, err := p.cal.AngleDeg(v)
+	if err != nil {
+		return err.Error()
+	}
+	if msg := p.checkAngle(deg); msg != "" {
+		return fmt.Sprintf("power %g µW: %s", v, msg)
+	}
+	return ""
+}
+
+// areaRange is the pulse-area range of the allowed powers.
+func (p *Plan) areaRange() (float64, float64) {
+	lo, hi := p.powerRangeUW()
+	return p.cal.PulseArea.AreaPi(lo), p.cal.PulseArea.AreaPi(hi)
 }
 
 func (p *Plan) checkAngle(deg float64) string {
@@ -496,10 +533,15 @@ func (p *Plan) target(k glissv1.AxisKind, v float64) Target {
 			t.GDDPS2 = ptr(g)
 		}
 	case glissv1.AxisKind_AXIS_KIND_POWER_UW:
-		deg, _ := p.cal.Attenuator.AngleDeg(v)
+		deg, _ := p.cal.AngleDeg(v)
 		t.AngleDeg, t.PowerUW = ptr(deg), ptr(v)
 	case glissv1.AxisKind_AXIS_KIND_ANGLE_DEG:
-		t.AngleDeg, t.PowerUW = ptr(v), ptr(p.cal.Attenuator.PowerUW(v))
+		pw, _ := p.cal.PowerUW(v)
+		t.AngleDeg, t.PowerUW = ptr(v), ptr(pw)
+	case glissv1.AxisKind_AXIS_KIND_PULSE_AREA_PI:
+		pw := p.cal.PulseArea.PowerUW(v)
+		deg, _ := p.cal.AngleDeg(pw)
+		t.AngleDeg, t.PowerUW = ptr(deg), ptr(pw)
 	case glissv1.AxisKind_AXIS_KIND_DETUNING_MEV:
 		t.DetuningMeV = ptr(v)
 	case glissv1.AxisKind_AXIS_KIND_TEMPERATURE_K:
@@ -581,7 +623,7 @@ func (p *Plan) Check(t Target) error {
 		return fmt.Errorf("interlock: attenuator target %.3f° outside %g–%g°: %w", *t.AngleDeg, l.att.AngleMinDeg, l.att.AngleMaxDeg, drivers.ErrLimit)
 	}
 	if t.AngleDeg != nil && l.att.PowerMaxUW > 0 {
-		if pw := p.cal.Attenuator.PowerUW(*t.AngleDeg); pw > l.att.PowerMaxUW*(1+1e-9) {
+		if pw, err := p.cal.PowerUW(*t.AngleDeg); err != nil || pw > l.att.PowerMaxUW*(1+1e-9) {
 			return fmt.Errorf("interlock: attenuator at %.3f° gives %.4g µW, above the maximum %g µW: %w", *t.AngleDeg, pw, l.att.PowerMaxUW, drivers.ErrLimit)
 		}
 	}

@@ -1,0 +1,86 @@
+package plan
+
+import (
+	"errors"
+	"math"
+	"strings"
+	"testing"
+
+	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
+	"github.com/gliss-lab/gliss/drivers"
+	"github.com/gliss-lab/gliss/drivers/calib"
+)
+
+// TestPulseAreaAxis: a pulse-area axis goes through the pulse-area
+// calibration (P = (Θ/s)²) and then the attenuator law to an angle; without
+// the calibration it is refused, and the bench's power limit still applies.
+func TestPulseAreaAxis(t *testing.T) {
+	b := simBench(t)
+	spec := &glissv1.ScanSpec{GateMs: 1, Axes: []*glissv1.Axis{rng(glissv1.AxisKind_AXIS_KIND_PULSE_AREA_PI, 0.5, 2, 4)}}
+	_, err := New(spec, b)
+	var inv *Invalid
+	if !errors.As(err, &inv) || inv.Fields[0].Field != "spec.axes[0].range.from" || !strings.Contains(inv.Fields[0].Msg, "pulse-area calibration") {
+		t.Fatalf("pulse-area axis without calibration: %v", err)
+	}
+
+	cal := b.CurrentCalibration()
+	cal.PulseArea = &calib.PulseArea{AreaPiPerSqrtUW: 0.5} // Θ/π = 0.5·√(P/µW): 1 π at 4 µW
+	cal.Version = 1
+	b.SetCalibration(cal)
+	p, err := New(spec, b)
+	if err != nil {
+		t.Fatal(err)
+	}
+	wantArea := []float64{0.5, 1, 1.5, 2}
+	for seq := range p.Points {
+		_, v, tg := p.At(seq)
+		if v[0] != wantArea[seq] {
+			t.Errorf("point %d: area %g π, want %g", seq, v[0], wantArea[seq])
+		}
+		wantP := math.Pow(wantArea[seq]/0.5, 2)
+		if tg.PowerUW == nil || math.Abs(*tg.PowerUW-wantP) > 1e-12*wantP {
+			t.Errorf("point %d: power %v µW, want %g", seq, tg.PowerUW, wantP)
+		}
+		pw, _ := cal.PowerUW(*tg.AngleDeg)
+		if math.Abs(pw-wantP) > 1e-9*wantP {
+			t.Errorf("point %d: angle %g° gives %g µW, want %g", seq, *tg.AngleDeg, pw, wantP)
+		}
+	}
+	// 8 π needs 256 µW, above the simulated bench's maximum of 200 µW.
+	_, err = New(&glissv1.ScanSpec{GateMs: 1, Axes: []*glissv1.Axis{rng(glissv1.AxisKind_AXIS_KIND_PULSE_AREA_PI, 1, 8, 2)}}, b)
+	if !errors.As(err, &inv) || inv.Fields[0].Field != "spec.axes[0].range.to" || !strings.Contains(inv.Fields[0].Msg, "allowed areas") {
+		t.Fatalf("8 π: %v", err)
+	}
+}
+
+// TestNDWheelLaw: a power axis through an ND-wheel calibration set with
+// SetCalibration; the plan made before the swap keeps its law.
+func TestNDWheelLaw(t *testing.T) {
+	b := simBench(t)
+	spec := &glissv1.ScanSpec{GateMs: 1, Axes: []*glissv1.Axis{{Kind: glissv1.AxisKind_AXIS_KIND_POWER_UW, Values: &glissv1.Axis_List{List: &glissv1.ValueList{Values: []float64{10}}}}}}
+	before, err := New(spec, b)
+	if err != nil {
+		t.Fatal(err)
+	}
+	nd := &calib.NDWheel{P0UW: 200, ODPerDeg: 0.01, MinDeg: 0, MaxDeg: 300} // 200 µW at 0°, OD 3 at 300°
+	cal := b.CurrentCalibration()
+	cal.Law = &calib.Attenuator{ND: nd}
+	cal.Version = 2
+	b.SetCalibration(cal)
+	after, err := New(spec, b)
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, _, t0 := before.At(0)
+	_, _, t1 := after.At(0)
+	wantMalus, _ := drivers.Calibration{Attenuator: b.Calibration.Attenuator}.AngleDeg(10)
+	wantND := -math.Log10(10.0/200) / 0.01 // 130.1°
+	if math.Abs(*t0.AngleDeg-wantMalus) > 1e-9 || math.Abs(*t1.AngleDeg-wantND) > 1e-9 {
+		t.Errorf("angles for 10 µW: before %g° (want %g), after %g° (want %g)", *t0.AngleDeg, wantMalus, *t1.AngleDeg, wantND)
+	}
+	// Below the wheel's range (0.2 µW at 300°).
+	spec.Axes[0].GetList().Values = []float64{0.1}
+	if _, err := New(spec, b); err == nil || !strings.Contains(err.Error(), "outside the allowed") {
+		t.Errorf("0.1 µW through the ND wheel: %v", err)
+	}
+}
