@@ -77,6 +77,29 @@ func (c *Cryostat) WaitStable(ctx context.Context, tolK float64, hold, timeout t
 	if err != nil {
 		return err
 	}
+	return c.waitStableAt(ctx, sp, tolK, hold, timeout)
+}
+
+var _ drivers.Stabilizer = (*Cryostat)(nil)
+
+// WaitStableK implements drivers.Stabilizer: it waits until the readings stay
+// within ±tolK of setpointK (the setpoint the caller has just set) for hold,
+// for at most timeout, both in instrument time like WaitStable. It does not
+// read or change the controller's setpoint. On timeout the error is a
+// *StabilityError wrapping ErrNotStable.
+func (c *Cryostat) WaitStableK(ctx context.Context, setpointK, tolK float64, hold, timeout time.Duration) error {
+	if err := CheckStability(tolK, hold, timeout); err != nil {
+		return fmt.Errorf("cryostat %q: wait for stability: %w", c.o.Name, err)
+	}
+	if math.IsNaN(setpointK) || math.IsInf(setpointK, 0) {
+		return fmt.Errorf("cryostat %q: wait for stability: setpoint_k %g: want a finite temperature", c.o.Name, setpointK)
+	}
+	return c.waitStableAt(ctx, setpointK, tolK, hold, timeout)
+}
+
+// waitStableAt polls every second of instrument time, or hold/5 when that
+// is shorter.
+func (c *Cryostat) waitStableAt(ctx context.Context, sp, tolK float64, hold, timeout time.Duration) error {
 	poll := time.Second
 	if hold > 0 && hold/5 < poll {
 		poll = hold / 5
