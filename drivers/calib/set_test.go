@@ -61,17 +61,17 @@ func TestSetRoundTrip(t *testing.T) {
 func TestDecodeSetRejects(t *testing.T) {
 	good, _ := EncodeSet(demoSet())
 	cases := map[string]string{
-		"unknown field":   strings.Replace(string(good), `"version"`, `"versoin"`, 1),
-		"bad schema":      strings.Replace(string(good), `"schema": 1`, `"schema": 2`, 1),
-		"zero version":    strings.Replace(string(good), `"version": 3`, `"version": 0`, 1),
-		"bad passes":      strings.Replace(string(good), `"passes": 4`, `"passes": 0`, 1),
-		"trailing":        string(good) + "{}",
-		"go field names":  `{"schema":1,"version":1,"created":"2026-12-02T00:00:00Z","stretcher":{"LinesPerMM":1800}}`,
-		"inverted malus":  strings.Replace(string(good), `"p_max_uw": 200`, `"p_max_uw": 0.01`, 1),
-		"negative area":   strings.Replace(string(good), `"area_pi_per_sqrt_uw": 1`, `"area_pi_per_sqrt_uw": -1`, 1),
-		"not json":        "schema=1",
-		"empty":           "",
-		"two attenuators": strings.Replace(string(good), `"malus": {`, `"nd_wheel": {"p0_uw": 1, "od_per_deg": 0.01, "min_deg": 0, "max_deg": 10}, "malus": {`, 1),
+		"unknown field":    strings.Replace(string(good), `"version"`, `"versoin"`, 1),
+		"bad schema":       strings.Replace(string(good), `"schema": 1`, `"schema": 2`, 1),
+		"negative version": strings.Replace(string(good), `"version": 3`, `"version": -1`, 1),
+		"bad passes":       strings.Replace(string(good), `"passes": 4`, `"passes": 0`, 1),
+		"trailing":         string(good) + "{}",
+		"go field names":   `{"schema":1,"version":1,"created":"2026-12-02T00:00:00Z","stretcher":{"LinesPerMM":1800}}`,
+		"inverted malus":   strings.Replace(string(good), `"p_max_uw": 200`, `"p_max_uw": 0.01`, 1),
+		"negative area":    strings.Replace(string(good), `"area_pi_per_sqrt_uw": 1`, `"area_pi_per_sqrt_uw": -1`, 1),
+		"not json":         "schema=1",
+		"empty":            "",
+		"two attenuators":  strings.Replace(string(good), `"malus": {`, `"nd_wheel": {"p0_uw": 1, "od_per_deg": 0.01, "min_deg": 0, "max_deg": 10}, "malus": {`, 1),
 	}
 	for name, in := range cases {
 		if _, err := DecodeSet([]byte(in)); err == nil {
