@@ -22,6 +22,59 @@ const (
 	_ = protoimpl.EnforceVersion(protoimpl.MaxVersion - 20)
 )
 
+// AttenuatorLaw is the law an attenuator calibration fits.
+type AttenuatorLaw int32
+
+const (
+	// Same as ATTENUATOR_LAW_MALUS.
+	AttenuatorLaw_ATTENUATOR_LAW_UNSPECIFIED AttenuatorLaw = 0
+	// Half-wave plate before a polariser: P = Pmin + (Pmax − Pmin)·cos²(2(θ − θ0)).
+	AttenuatorLaw_ATTENUATOR_LAW_MALUS AttenuatorLaw = 1
+	// Graded neutral-density wheel: P = P0·10^(−k·θ).
+	AttenuatorLaw_ATTENUATOR_LAW_ND_WHEEL AttenuatorLaw = 2
+)
+
+// Enum value maps for AttenuatorLaw.
+var (
+	AttenuatorLaw_name = map[int32]string{
+		0: "ATTENUATOR_LAW_UNSPECIFIED",
+		1: "ATTENUATOR_LAW_MALUS",
+		2: "ATTENUATOR_LAW_ND_WHEEL",
+	}
+	AttenuatorLaw_value = map[string]int32{
+		"ATTENUATOR_LAW_UNSPECIFIED": 0,
+		"ATTENUATOR_LAW_MALUS":       1,
+		"ATTENUATOR_LAW_ND_WHEEL":    2,
+	}
+)
+
+func (x AttenuatorLaw) Enum() *AttenuatorLaw {
+	p := new(AttenuatorLaw)
+	*p = x
+	return p
+}
+
+func (x AttenuatorLaw) String() string {
+	return protoimpl.X.EnumStringOf(x.Descriptor(), protoreflect.EnumNumber(x))
+}
+
+func (AttenuatorLaw) Descriptor() protoreflect.EnumDescriptor {
+	return file_gliss_v1_calibration_proto_enumTypes[0].Descriptor()
+}
+
+func (AttenuatorLaw) Type() protoreflect.EnumType {
+	return &file_gliss_v1_calibration_proto_enumTypes[0]
+}
+
+func (x AttenuatorLaw) Number() protoreflect.EnumNumber {
+	return protoreflect.EnumNumber(x)
+}
+
+// Deprecated: Use AttenuatorLaw.Descriptor instead.
+func (AttenuatorLaw) EnumDescriptor() ([]byte, []int) {
+	return file_gliss_v1_calibration_proto_rawDescGZIP(), []int{0}
+}
+
 // CalibrationRecord is one version of a bench's calibration set: stage mm ↔
 // GDD ps² (stretcher), attenuator angle deg ↔ power µW (Malus or ND wheel),
 // and power µW ↔ pulse area π. It is recorded in every scan that used it.
@@ -107,6 +160,586 @@ func (x *CalibrationRecord) GetNote() string {
 	return ""
 }
 
+type GetCalibrationRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// A stored version; absent: the set in use.
+	Version       *uint32 `protobuf:"varint,1,opt,name=version,proto3,oneof" json:"version,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *GetCalibrationRequest) Reset() {
+	*x = GetCalibrationRequest{}
+	mi := &file_gliss_v1_calibration_proto_msgTypes[1]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *GetCalibrationRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*GetCalibrationRequest) ProtoMessage() {}
+
+func (x *GetCalibrationRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_gliss_v1_calibration_proto_msgTypes[1]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use GetCalibrationRequest.ProtoReflect.Descriptor instead.
+func (*GetCalibrationRequest) Descriptor() ([]byte, []int) {
+	return file_gliss_v1_calibration_proto_rawDescGZIP(), []int{1}
+}
+
+func (x *GetCalibrationRequest) GetVersion() uint32 {
+	if x != nil && x.Version != nil {
+		return *x.Version
+	}
+	return 0
+}
+
+type ListCalibrationsRequest struct {
+	state         protoimpl.MessageState `protogen:"open.v1"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ListCalibrationsRequest) Reset() {
+	*x = ListCalibrationsRequest{}
+	mi := &file_gliss_v1_calibration_proto_msgTypes[2]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ListCalibrationsRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ListCalibrationsRequest) ProtoMessage() {}
+
+func (x *ListCalibrationsRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_gliss_v1_calibration_proto_msgTypes[2]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ListCalibrationsRequest.ProtoReflect.Descriptor instead.
+func (*ListCalibrationsRequest) Descriptor() ([]byte, []int) {
+	return file_gliss_v1_calibration_proto_rawDescGZIP(), []int{2}
+}
+
+type ListCalibrationsResponse struct {
+	state        protoimpl.MessageState `protogen:"open.v1"`
+	Calibrations []*CalibrationRecord   `protobuf:"bytes,1,rep,name=calibrations,proto3" json:"calibrations,omitempty"`
+	// Version in use.
+	CurrentVersion uint32 `protobuf:"varint,2,opt,name=current_version,json=currentVersion,proto3" json:"current_version,omitempty"`
+	unknownFields  protoimpl.UnknownFields
+	sizeCache      protoimpl.SizeCache
+}
+
+func (x *ListCalibrationsResponse) Reset() {
+	*x = ListCalibrationsResponse{}
+	mi := &file_gliss_v1_calibration_proto_msgTypes[3]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ListCalibrationsResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ListCalibrationsResponse) ProtoMessage() {}
+
+func (x *ListCalibrationsResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_gliss_v1_calibration_proto_msgTypes[3]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ListCalibrationsResponse.ProtoReflect.Descriptor instead.
+func (*ListCalibrationsResponse) Descriptor() ([]byte, []int) {
+	return file_gliss_v1_calibration_proto_rawDescGZIP(), []int{3}
+}
+
+func (x *ListCalibrationsResponse) GetCalibrations() []*CalibrationRecord {
+	if x != nil {
+		return x.Calibrations
+	}
+	return nil
+}
+
+func (x *ListCalibrationsResponse) GetCurrentVersion() uint32 {
+	if x != nil {
+		return x.CurrentVersion
+	}
+	return 0
+}
+
+type PutCalibrationRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Parts of a calib.Set as JSON: any of "stretcher", "attenuator",
+	// "pulse_area" (schema, version and created are set by the daemon).
+	SetJson string `protobuf:"bytes,1,opt,name=set_json,json=setJson,proto3" json:"set_json,omitempty"`
+	// How the numbers were obtained (≤ 2000 characters).
+	Note          string `protobuf:"bytes,2,opt,name=note,proto3" json:"note,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *PutCalibrationRequest) Reset() {
+	*x = PutCalibrationRequest{}
+	mi := &file_gliss_v1_calibration_proto_msgTypes[4]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *PutCalibrationRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*PutCalibrationRequest) ProtoMessage() {}
+
+func (x *PutCalibrationRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_gliss_v1_calibration_proto_msgTypes[4]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use PutCalibrationRequest.ProtoReflect.Descriptor instead.
+func (*PutCalibrationRequest) Descriptor() ([]byte, []int) {
+	return file_gliss_v1_calibration_proto_rawDescGZIP(), []int{4}
+}
+
+func (x *PutCalibrationRequest) GetSetJson() string {
+	if x != nil {
+		return x.SetJson
+	}
+	return ""
+}
+
+func (x *PutCalibrationRequest) GetNote() string {
+	if x != nil {
+		return x.Note
+	}
+	return ""
+}
+
+type RunAttenuatorCalibrationRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Angles from_deg … to_deg, count of them (defaults 0, 90, 46: two
+	// periods of the Malus law), within the attenuator's limits.
+	FromDeg float64       `protobuf:"fixed64,1,opt,name=from_deg,json=fromDeg,proto3" json:"from_deg,omitempty"`
+	ToDeg   float64       `protobuf:"fixed64,2,opt,name=to_deg,json=toDeg,proto3" json:"to_deg,omitempty"`
+	Count   uint32        `protobuf:"varint,3,opt,name=count,proto3" json:"count,omitempty"`
+	Law     AttenuatorLaw `protobuf:"varint,4,opt,name=law,proto3,enum=gliss.v1.AttenuatorLaw" json:"law,omitempty"`
+	// Wait after each move before reading, ms (default 0).
+	SettleMs float64 `protobuf:"fixed64,5,opt,name=settle_ms,json=settleMs,proto3" json:"settle_ms,omitempty"`
+	// Note stored with the new version.
+	Note string `protobuf:"bytes,6,opt,name=note,proto3" json:"note,omitempty"`
+	// Fit and report only; store nothing.
+	DryRun        bool `protobuf:"varint,7,opt,name=dry_run,json=dryRun,proto3" json:"dry_run,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *RunAttenuatorCalibrationRequest) Reset() {
+	*x = RunAttenuatorCalibrationRequest{}
+	mi := &file_gliss_v1_calibration_proto_msgTypes[5]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *RunAttenuatorCalibrationRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*RunAttenuatorCalibrationRequest) ProtoMessage() {}
+
+func (x *RunAttenuatorCalibrationRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_gliss_v1_calibration_proto_msgTypes[5]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use RunAttenuatorCalibrationRequest.ProtoReflect.Descriptor instead.
+func (*RunAttenuatorCalibrationRequest) Descriptor() ([]byte, []int) {
+	return file_gliss_v1_calibration_proto_rawDescGZIP(), []int{5}
+}
+
+func (x *RunAttenuatorCalibrationRequest) GetFromDeg() float64 {
+	if x != nil {
+		return x.FromDeg
+	}
+	return 0
+}
+
+func (x *RunAttenuatorCalibrationRequest) GetToDeg() float64 {
+	if x != nil {
+		return x.ToDeg
+	}
+	return 0
+}
+
+func (x *RunAttenuatorCalibrationRequest) GetCount() uint32 {
+	if x != nil {
+		return x.Count
+	}
+	return 0
+}
+
+func (x *RunAttenuatorCalibrationRequest) GetLaw() AttenuatorLaw {
+	if x != nil {
+		return x.Law
+	}
+	return AttenuatorLaw_ATTENUATOR_LAW_UNSPECIFIED
+}
+
+func (x *RunAttenuatorCalibrationRequest) GetSettleMs() float64 {
+	if x != nil {
+		return x.SettleMs
+	}
+	return 0
+}
+
+func (x *RunAttenuatorCalibrationRequest) GetNote() string {
+	if x != nil {
+		return x.Note
+	}
+	return ""
+}
+
+func (x *RunAttenuatorCalibrationRequest) GetDryRun() bool {
+	if x != nil {
+		return x.DryRun
+	}
+	return false
+}
+
+type AttenuatorCalibrationResult struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The new version (the set in use when dry_run).
+	Calibration *CalibrationRecord `protobuf:"bytes,1,opt,name=calibration,proto3" json:"calibration,omitempty"`
+	// The readings: angle, power-meter reading, reading − fit.
+	AnglesDeg     []float64 `protobuf:"fixed64,2,rep,packed,name=angles_deg,json=anglesDeg,proto3" json:"angles_deg,omitempty"`
+	PowersUw      []float64 `protobuf:"fixed64,3,rep,packed,name=powers_uw,json=powersUw,proto3" json:"powers_uw,omitempty"`
+	ResidualsUw   []float64 `protobuf:"fixed64,4,rep,packed,name=residuals_uw,json=residualsUw,proto3" json:"residuals_uw,omitempty"`
+	RmsResidualUw float64   `protobuf:"fixed64,5,opt,name=rms_residual_uw,json=rmsResidualUw,proto3" json:"rms_residual_uw,omitempty"`
+	MaxResidualUw float64   `protobuf:"fixed64,6,opt,name=max_residual_uw,json=maxResidualUw,proto3" json:"max_residual_uw,omitempty"`
+	// The fit with 1σ uncertainties (calib.MalusFit or calib.NDWheelFit JSON).
+	FitJson       string `protobuf:"bytes,7,opt,name=fit_json,json=fitJson,proto3" json:"fit_json,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *AttenuatorCalibrationResult) Reset() {
+	*x = AttenuatorCalibrationResult{}
+	mi := &file_gliss_v1_calibration_proto_msgTypes[6]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *AttenuatorCalibrationResult) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*AttenuatorCalibrationResult) ProtoMessage() {}
+
+func (x *AttenuatorCalibrationResult) ProtoReflect() protoreflect.Message {
+	mi := &file_gliss_v1_calibration_proto_msgTypes[6]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use AttenuatorCalibrationResult.ProtoReflect.Descriptor instead.
+func (*AttenuatorCalibrationResult) Descriptor() ([]byte, []int) {
+	return file_gliss_v1_calibration_proto_rawDescGZIP(), []int{6}
+}
+
+func (x *AttenuatorCalibrationResult) GetCalibration() *CalibrationRecord {
+	if x != nil {
+		return x.Calibration
+	}
+	return nil
+}
+
+func (x *AttenuatorCalibrationResult) GetAnglesDeg() []float64 {
+	if x != nil {
+		return x.AnglesDeg
+	}
+	return nil
+}
+
+func (x *AttenuatorCalibrationResult) GetPowersUw() []float64 {
+	if x != nil {
+		return x.PowersUw
+	}
+	return nil
+}
+
+func (x *AttenuatorCalibrationResult) GetResidualsUw() []float64 {
+	if x != nil {
+		return x.ResidualsUw
+	}
+	return nil
+}
+
+func (x *AttenuatorCalibrationResult) GetRmsResidualUw() float64 {
+	if x != nil {
+		return x.RmsResidualUw
+	}
+	return 0
+}
+
+func (x *AttenuatorCalibrationResult) GetMaxResidualUw() float64 {
+	if x != nil {
+		return x.MaxResidualUw
+	}
+	return 0
+}
+
+func (x *AttenuatorCalibrationResult) GetFitJson() string {
+	if x != nil {
+		return x.FitJson
+	}
+	return ""
+}
+
+type CalibratePulseAreaRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// A stored power sweep (power or pulse-area axis) at zero chirp.
+	ScanId string `protobuf:"bytes,1,opt,name=scan_id,json=scanId,proto3" json:"scan_id,omitempty"`
+	// Counter channel of the biexciton line (default "xx").
+	Channel string `protobuf:"bytes,2,opt,name=channel,proto3" json:"channel,omitempty"`
+	// Largest pulse area the fit considers, π (default 10).
+	MaxAreaPi float64 `protobuf:"fixed64,3,opt,name=max_area_pi,json=maxAreaPi,proto3" json:"max_area_pi,omitempty"`
+	// The dot model (absent fields: the demo dot of the physics reference).
+	FwhmPs        *float64 `protobuf:"fixed64,4,opt,name=fwhm_ps,json=fwhmPs,proto3,oneof" json:"fwhm_ps,omitempty"`
+	BindingMev    *float64 `protobuf:"fixed64,5,opt,name=binding_mev,json=bindingMev,proto3,oneof" json:"binding_mev,omitempty"`
+	DetuningMev   *float64 `protobuf:"fixed64,6,opt,name=detuning_mev,json=detuningMev,proto3,oneof" json:"detuning_mev,omitempty"`
+	Note          string   `protobuf:"bytes,7,opt,name=note,proto3" json:"note,omitempty"`
+	DryRun        bool     `protobuf:"varint,8,opt,name=dry_run,json=dryRun,proto3" json:"dry_run,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *CalibratePulseAreaRequest) Reset() {
+	*x = CalibratePulseAreaRequest{}
+	mi := &file_gliss_v1_calibration_proto_msgTypes[7]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *CalibratePulseAreaRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*CalibratePulseAreaRequest) ProtoMessage() {}
+
+func (x *CalibratePulseAreaRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_gliss_v1_calibration_proto_msgTypes[7]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use CalibratePulseAreaRequest.ProtoReflect.Descriptor instead.
+func (*CalibratePulseAreaRequest) Descriptor() ([]byte, []int) {
+	return file_gliss_v1_calibration_proto_rawDescGZIP(), []int{7}
+}
+
+func (x *CalibratePulseAreaRequest) GetScanId() string {
+	if x != nil {
+		return x.ScanId
+	}
+	return ""
+}
+
+func (x *CalibratePulseAreaRequest) GetChannel() string {
+	if x != nil {
+		return x.Channel
+	}
+	return ""
+}
+
+func (x *CalibratePulseAreaRequest) GetMaxAreaPi() float64 {
+	if x != nil {
+		return x.MaxAreaPi
+	}
+	return 0
+}
+
+func (x *CalibratePulseAreaRequest) GetFwhmPs() float64 {
+	if x != nil && x.FwhmPs != nil {
+		return *x.FwhmPs
+	}
+	return 0
+}
+
+func (x *CalibratePulseAreaRequest) GetBindingMev() float64 {
+	if x != nil && x.BindingMev != nil {
+		return *x.BindingMev
+	}
+	return 0
+}
+
+func (x *CalibratePulseAreaRequest) GetDetuningMev() float64 {
+	if x != nil && x.DetuningMev != nil {
+		return *x.DetuningMev
+	}
+	return 0
+}
+
+func (x *CalibratePulseAreaRequest) GetNote() string {
+	if x != nil {
+		return x.Note
+	}
+	return ""
+}
+
+func (x *CalibratePulseAreaRequest) GetDryRun() bool {
+	if x != nil {
+		return x.DryRun
+	}
+	return false
+}
+
+type PulseAreaCalibrationResult struct {
+	state       protoimpl.MessageState `protogen:"open.v1"`
+	Calibration *CalibrationRecord     `protobuf:"bytes,1,opt,name=calibration,proto3" json:"calibration,omitempty"`
+	// Θ/π = area_pi_per_sqrt_uw·sqrt(P/µW), with 1σ.
+	AreaPiPerSqrtUw      float64 `protobuf:"fixed64,2,opt,name=area_pi_per_sqrt_uw,json=areaPiPerSqrtUw,proto3" json:"area_pi_per_sqrt_uw,omitempty"`
+	SigmaAreaPiPerSqrtUw float64 `protobuf:"fixed64,3,opt,name=sigma_area_pi_per_sqrt_uw,json=sigmaAreaPiPerSqrtUw,proto3" json:"sigma_area_pi_per_sqrt_uw,omitempty"`
+	// Power of the two-photon π pulse (first maximum of the XX yield), with 1σ.
+	PiPowerUw      float64 `protobuf:"fixed64,4,opt,name=pi_power_uw,json=piPowerUw,proto3" json:"pi_power_uw,omitempty"`
+	SigmaPiPowerUw float64 `protobuf:"fixed64,5,opt,name=sigma_pi_power_uw,json=sigmaPiPowerUw,proto3" json:"sigma_pi_power_uw,omitempty"`
+	RedChiSq       float64 `protobuf:"fixed64,6,opt,name=red_chi_sq,json=redChiSq,proto3" json:"red_chi_sq,omitempty"`
+	// The fit (calib.PulseAreaFit JSON, with residuals).
+	FitJson       string `protobuf:"bytes,7,opt,name=fit_json,json=fitJson,proto3" json:"fit_json,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *PulseAreaCalibrationResult) Reset() {
+	*x = PulseAreaCalibrationResult{}
+	mi := &file_gliss_v1_calibration_proto_msgTypes[8]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *PulseAreaCalibrationResult) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*PulseAreaCalibrationResult) ProtoMessage() {}
+
+func (x *PulseAreaCalibrationResult) ProtoReflect() protoreflect.Message {
+	mi := &file_gliss_v1_calibration_proto_msgTypes[8]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use PulseAreaCalibrationResult.ProtoReflect.Descriptor instead.
+func (*PulseAreaCalibrationResult) Descriptor() ([]byte, []int) {
+	return file_gliss_v1_calibration_proto_rawDescGZIP(), []int{8}
+}
+
+func (x *PulseAreaCalibrationResult) GetCalibration() *CalibrationRecord {
+	if x != nil {
+		return x.Calibration
+	}
+	return nil
+}
+
+func (x *PulseAreaCalibrationResult) GetAreaPiPerSqrtUw() float64 {
+	if x != nil {
+		return x.AreaPiPerSqrtUw
+	}
+	return 0
+}
+
+func (x *PulseAreaCalibrationResult) GetSigmaAreaPiPerSqrtUw() float64 {
+	if x != nil {
+		return x.SigmaAreaPiPerSqrtUw
+	}
+	return 0
+}
+
+func (x *PulseAreaCalibrationResult) GetPiPowerUw() float64 {
+	if x != nil {
+		return x.PiPowerUw
+	}
+	return 0
+}
+
+func (x *PulseAreaCalibrationResult) GetSigmaPiPowerUw() float64 {
+	if x != nil {
+		return x.SigmaPiPowerUw
+	}
+	return 0
+}
+
+func (x *PulseAreaCalibrationResult) GetRedChiSq() float64 {
+	if x != nil {
+		return x.RedChiSq
+	}
+	return 0
+}
+
+func (x *PulseAreaCalibrationResult) GetFitJson() string {
+	if x != nil {
+		return x.FitJson
+	}
+	return ""
+}
+
 var File_gliss_v1_calibration_proto protoreflect.FileDescriptor
 
 const file_gliss_v1_calibration_proto_rawDesc = "" +
@@ -118,7 +751,68 @@ const file_gliss_v1_calibration_proto_rawDesc = "" +
 	"\n" +
 	"created_at\x18\x03 \x01(\v2\x1a.google.protobuf.TimestampR\tcreatedAt\x12\x19\n" +
 	"\bset_json\x18\x04 \x01(\tR\asetJson\x12\x12\n" +
-	"\x04note\x18\x05 \x01(\tR\x04noteB1Z/github.com/gliss-lab/gliss/api/gliss/v1;glissv1b\x06proto3"
+	"\x04note\x18\x05 \x01(\tR\x04note\"B\n" +
+	"\x15GetCalibrationRequest\x12\x1d\n" +
+	"\aversion\x18\x01 \x01(\rH\x00R\aversion\x88\x01\x01B\n" +
+	"\n" +
+	"\b_version\"\x19\n" +
+	"\x17ListCalibrationsRequest\"\x84\x01\n" +
+	"\x18ListCalibrationsResponse\x12?\n" +
+	"\fcalibrations\x18\x01 \x03(\v2\x1b.gliss.v1.CalibrationRecordR\fcalibrations\x12'\n" +
+	"\x0fcurrent_version\x18\x02 \x01(\rR\x0ecurrentVersion\"F\n" +
+	"\x15PutCalibrationRequest\x12\x19\n" +
+	"\bset_json\x18\x01 \x01(\tR\asetJson\x12\x12\n" +
+	"\x04note\x18\x02 \x01(\tR\x04note\"\xde\x01\n" +
+	"\x1fRunAttenuatorCalibrationRequest\x12\x19\n" +
+	"\bfrom_deg\x18\x01 \x01(\x01R\afromDeg\x12\x15\n" +
+	"\x06to_deg\x18\x02 \x01(\x01R\x05toDeg\x12\x14\n" +
+	"\x05count\x18\x03 \x01(\rR\x05count\x12)\n" +
+	"\x03law\x18\x04 \x01(\x0e2\x17.gliss.v1.AttenuatorLawR\x03law\x12\x1b\n" +
+	"\tsettle_ms\x18\x05 \x01(\x01R\bsettleMs\x12\x12\n" +
+	"\x04note\x18\x06 \x01(\tR\x04note\x12\x17\n" +
+	"\adry_run\x18\a \x01(\bR\x06dryRun\"\xa6\x02\n" +
+	"\x1bAttenuatorCalibrationResult\x12=\n" +
+	"\vcalibration\x18\x01 \x01(\v2\x1b.gliss.v1.CalibrationRecordR\vcalibration\x12\x1d\n" +
+	"\n" +
+	"angles_deg\x18\x02 \x03(\x01R\tanglesDeg\x12\x1b\n" +
+	"\tpowers_uw\x18\x03 \x03(\x01R\bpowersUw\x12!\n" +
+	"\fresiduals_uw\x18\x04 \x03(\x01R\vresidualsUw\x12&\n" +
+	"\x0frms_residual_uw\x18\x05 \x01(\x01R\rrmsResidualUw\x12&\n" +
+	"\x0fmax_residual_uw\x18\x06 \x01(\x01R\rmaxResidualUw\x12\x19\n" +
+	"\bfit_json\x18\a \x01(\tR\afitJson\"\xb4\x02\n" +
+	"\x19CalibratePulseAreaRequest\x12\x17\n" +
+	"\ascan_id\x18\x01 \x01(\tR\x06scanId\x12\x18\n" +
+	"\achannel\x18\x02 \x01(\tR\achannel\x12\x1e\n" +
+	"\vmax_area_pi\x18\x03 \x01(\x01R\tmaxAreaPi\x12\x1c\n" +
+	"\afwhm_ps\x18\x04 \x01(\x01H\x00R\x06fwhmPs\x88\x01\x01\x12$\n" +
+	"\vbinding_mev\x18\x05 \x01(\x01H\x01R\n" +
+	"bindingMev\x88\x01\x01\x12&\n" +
+	"\fdetuning_mev\x18\x06 \x01(\x01H\x02R\vdetuningMev\x88\x01\x01\x12\x12\n" +
+	"\x04note\x18\a \x01(\tR\x04note\x12\x17\n" +
+	"\adry_run\x18\b \x01(\bR\x06dryRunB\n" +
+	"\n" +
+	"\b_fwhm_psB\x0e\n" +
+	"\f_binding_mevB\x0f\n" +
+	"\r_detuning_mev\"\xc6\x02\n" +
+	"\x1aPulseAreaCalibrationResult\x12=\n" +
+	"\vcalibration\x18\x01 \x01(\v2\x1b.gliss.v1.CalibrationRecordR\vcalibration\x12,\n" +
+	"\x13area_pi_per_sqrt_uw\x18\x02 \x01(\x01R\x0fareaPiPerSqrtUw\x127\n" +
+	"\x19sigma_area_pi_per_sqrt_uw\x18\x03 \x01(\x01R\x14sigmaAreaPiPerSqrtUw\x12\x1e\n" +
+	"\vpi_power_uw\x18\x04 \x01(\x01R\tpiPowerUw\x12)\n" +
+	"\x11sigma_pi_power_uw\x18\x05 \x01(\x01R\x0esigmaPiPowerUw\x12\x1c\n" +
+	"\n" +
+	"red_chi_sq\x18\x06 \x01(\x01R\bredChiSq\x12\x19\n" +
+	"\bfit_json\x18\a \x01(\tR\afitJson*f\n" +
+	"\rAttenuatorLaw\x12\x1e\n" +
+	"\x1aATTENUATOR_LAW_UNSPECIFIED\x10\x00\x12\x18\n" +
+	"\x14ATTENUATOR_LAW_MALUS\x10\x01\x12\x1b\n" +
+	"\x17ATTENUATOR_LAW_ND_WHEEL\x10\x022\xde\x03\n" +
+	"\x12CalibrationService\x12N\n" +
+	"\x0eGetCalibration\x12\x1f.gliss.v1.GetCalibrationRequest\x1a\x1b.gliss.v1.CalibrationRecord\x12Y\n" +
+	"\x10ListCalibrations\x12!.gliss.v1.ListCalibrationsRequest\x1a\".gliss.v1.ListCalibrationsResponse\x12N\n" +
+	"\x0ePutCalibration\x12\x1f.gliss.v1.PutCalibrationRequest\x1a\x1b.gliss.v1.CalibrationRecord\x12l\n" +
+	"\x18RunAttenuatorCalibration\x12).gliss.v1.RunAttenuatorCalibrationRequest\x1a%.gliss.v1.AttenuatorCalibrationResult\x12_\n" +
+	"\x12CalibratePulseArea\x12#.gliss.v1.CalibratePulseAreaRequest\x1a$.gliss.v1.PulseAreaCalibrationResultB1Z/github.com/gliss-lab/gliss/api/gliss/v1;glissv1b\x06proto3"
 
 var (
 	file_gliss_v1_calibration_proto_rawDescOnce sync.Once
@@ -132,18 +826,42 @@ func file_gliss_v1_calibration_proto_rawDescGZIP() []byte {
 	return file_gliss_v1_calibration_proto_rawDescData
 }
 
-var file_gliss_v1_calibration_proto_msgTypes = make([]protoimpl.MessageInfo, 1)
+var file_gliss_v1_calibration_proto_enumTypes = make([]protoimpl.EnumInfo, 1)
+var file_gliss_v1_calibration_proto_msgTypes = make([]protoimpl.MessageInfo, 9)
 var file_gliss_v1_calibration_proto_goTypes = []any{
-	(*CalibrationRecord)(nil),     // 0: gliss.v1.CalibrationRecord
-	(*timestamppb.Timestamp)(nil), // 1: google.protobuf.Timestamp
+	(AttenuatorLaw)(0),                      // 0: gliss.v1.AttenuatorLaw
+	(*CalibrationRecord)(nil),               // 1: gliss.v1.CalibrationRecord
+	(*GetCalibrationRequest)(nil),           // 2: gliss.v1.GetCalibrationRequest
+	(*ListCalibrationsRequest)(nil),         // 3: gliss.v1.ListCalibrationsRequest
+	(*ListCalibrationsResponse)(nil),        // 4: gliss.v1.ListCalibrationsResponse
+	(*PutCalibrationRequest)(nil),           // 5: gliss.v1.PutCalibrationRequest
+	(*RunAttenuatorCalibrationRequest)(nil), // 6: gliss.v1.RunAttenuatorCalibrationRequest
+	(*AttenuatorCalibrationResult)(nil),     // 7: gliss.v1.AttenuatorCalibrationResult
+	(*CalibratePulseAreaRequest)(nil),       // 8: gliss.v1.CalibratePulseAreaRequest
+	(*PulseAreaCalibrationResult)(nil),      // 9: gliss.v1.PulseAreaCalibrationResult
+	(*timestamppb.Timestamp)(nil),           // 10: google.protobuf.Timestamp
 }
 var file_gliss_v1_calibration_proto_depIdxs = []int32{
-	1, // 0: gliss.v1.CalibrationRecord.created_at:type_name -> google.protobuf.Timestamp
-	1, // [1:1] is the sub-list for method output_type
-	1, // [1:1] is the sub-list for method input_type
-	1, // [1:1] is the sub-list for extension type_name
-	1, // [1:1] is the sub-list for extension extendee
-	0, // [0:1] is the sub-list for field type_name
+	10, // 0: gliss.v1.CalibrationRecord.created_at:type_name -> google.protobuf.Timestamp
+	1,  // 1: gliss.v1.ListCalibrationsResponse.calibrations:type_name -> gliss.v1.CalibrationRecord
+	0,  // 2: gliss.v1.RunAttenuatorCalibrationRequest.law:type_name -> gliss.v1.AttenuatorLaw
+	1,  // 3: gliss.v1.AttenuatorCalibrationResult.calibration:type_name -> gliss.v1.CalibrationRecord
+	1,  // 4: gliss.v1.PulseAreaCalibrationResult.calibration:type_name -> gliss.v1.CalibrationRecord
+	2,  // 5: gliss.v1.CalibrationService.GetCalibration:input_type -> gliss.v1.GetCalibrationRequest
+	3,  // 6: gliss.v1.CalibrationService.ListCalibrations:input_type -> gliss.v1.ListCalibrationsRequest
+	5,  // 7: gliss.v1.CalibrationService.PutCalibration:input_type -> gliss.v1.PutCalibrationRequest
+	6,  // 8: gliss.v1.CalibrationService.RunAttenuatorCalibration:input_type -> gliss.v1.RunAttenuatorCalibrationRequest
+	8,  // 9: gliss.v1.CalibrationService.CalibratePulseArea:input_type -> gliss.v1.CalibratePulseAreaRequest
+	1,  // 10: gliss.v1.CalibrationService.GetCalibration:output_type -> gliss.v1.CalibrationRecord
+	4,  // 11: gliss.v1.CalibrationService.ListCalibrations:output_type -> gliss.v1.ListCalibrationsResponse
+	1,  // 12: gliss.v1.CalibrationService.PutCalibration:output_type -> gliss.v1.CalibrationRecord
+	7,  // 13: gliss.v1.CalibrationService.RunAttenuatorCalibration:output_type -> gliss.v1.AttenuatorCalibrationResult
+	9,  // 14: gliss.v1.CalibrationService.CalibratePulseArea:output_type -> gliss.v1.PulseAreaCalibrationResult
+	10, // [10:15] is the sub-list for method output_type
+	5,  // [5:10] is the sub-list for method input_type
+	5,  // [5:5] is the sub-list for extension type_name
+	5,  // [5:5] is the sub-list for extension extendee
+	0,  // [0:5] is the sub-list for field type_name
 }
 
 func init() { file_gliss_v1_calibration_proto_init() }
@@ -151,18 +869,21 @@ func file_gliss_v1_calibration_proto_init() {
 	if File_gliss_v1_calibration_proto != nil {
 		return
 	}
+	file_gliss_v1_calibration_proto_msgTypes[1].OneofWrappers = []any{}
+	file_gliss_v1_calibration_proto_msgTypes[7].OneofWrappers = []any{}
 	type x struct{}
 	out := protoimpl.TypeBuilder{
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_gliss_v1_calibration_proto_rawDesc), len(file_gliss_v1_calibration_proto_rawDesc)),
-			NumEnums:      0,
-			NumMessages:   1,
+			NumEnums:      1,
+			NumMessages:   9,
 			NumExtensions: 0,
-			NumServices:   0,
+			NumServices:   1,
 		},
 		GoTypes:           file_gliss_v1_calibration_proto_goTypes,
 		DependencyIndexes: file_gliss_v1_calibration_proto_depIdxs,
+		EnumInfos:         file_gliss_v1_calibration_proto_enumTypes,
 		MessageInfos:      file_gliss_v1_calibration_proto_msgTypes,
 	}.Build()
 	File_gliss_v1_calibration_proto = out.File

@@ -14,7 +14,7 @@ _sym_db = _symbol_database.Default()
 from google.protobuf import timestamp_pb2 as google_dot_protobuf_dot_timestamp__pb2
 
 
-DESCRIPTOR = _descriptor_pool.Default().AddSerializedFile(b'\n\x1agliss/v1/calibration.proto\x12\x08gliss.v1\x1a\x1fgoogle/protobuf/timestamp.proto\"\x83\x01\n\x11\x43\x61librationRecord\x12\r\n\x05\x62\x65nch\x18\x01 \x01(\t\x12\x0f\n\x07version\x18\x02 \x01(\r\x12.\n\ncreated_at\x18\x03 \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12\x10\n\x08set_json\x18\x04 \x01(\t\x12\x0c\n\x04note\x18\x05 \x01(\tB1Z/github.com/gliss-lab/gliss/api/gliss/v1;glissv1b\x06proto3')
+DESCRIPTOR = _descriptor_pool.Default().AddSerializedFile(b'\n\x1agliss/v1/calibration.proto\x12\x08gliss.v1\x1a\x1fgoogle/protobuf/timestamp.proto\"\x83\x01\n\x11\x43\x61librationRecord\x12\r\n\x05\x62\x65nch\x18\x01 \x01(\t\x12\x0f\n\x07version\x18\x02 \x01(\r\x12.\n\ncreated_at\x18\x03 \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12\x10\n\x08set_json\x18\x04 \x01(\t\x12\x0c\n\x04note\x18\x05 \x01(\t\"9\n\x15GetCalibrationRequest\x12\x14\n\x07version\x18\x01 \x01(\rH\x00\x88\x01\x01\x42\n\n\x08_version\"\x19\n\x17ListCalibrationsRequest\"f\n\x18ListCalibrationsResponse\x12\x31\n\x0c\x63\x61librations\x18\x01 \x03(\x0b\x32\x1b.gliss.v1.CalibrationRecord\x12\x17\n\x0f\x63urrent_version\x18\x02 \x01(\r\"7\n\x15PutCalibrationRequest\x12\x10\n\x08set_json\x18\x01 \x01(\t\x12\x0c\n\x04note\x18\x02 \x01(\t\"\xaa\x01\n\x1fRunAttenuatorCalibrationRequest\x12\x10\n\x08\x66rom_deg\x18\x01 \x01(\x01\x12\x0e\n\x06to_deg\x18\x02 \x01(\x01\x12\r\n\x05\x63ount\x18\x03 \x01(\r\x12$\n\x03law\x18\x04 \x01(\x0e\x32\x17.gliss.v1.AttenuatorLaw\x12\x11\n\tsettle_ms\x18\x05 \x01(\x01\x12\x0c\n\x04note\x18\x06 \x01(\t\x12\x0f\n\x07\x64ry_run\x18\x07 \x01(\x08\"\xd0\x01\n\x1b\x41ttenuatorCalibrationResult\x12\x30\n\x0b\x63\x61libration\x18\x01 \x01(\x0b\x32\x1b.gliss.v1.CalibrationRecord\x12\x12\n\nangles_deg\x18\x02 \x03(\x01\x12\x11\n\tpowers_uw\x18\x03 \x03(\x01\x12\x14\n\x0cresiduals_uw\x18\x04 \x03(\x01\x12\x17\n\x0frms_residual_uw\x18\x05 \x01(\x01\x12\x17\n\x0fmax_residual_uw\x18\x06 \x01(\x01\x12\x10\n\x08\x66it_json\x18\x07 \x01(\t\"\xe9\x01\n\x19\x43\x61libratePulseAreaRequest\x12\x0f\n\x07scan_id\x18\x01 \x01(\t\x12\x0f\n\x07\x63hannel\x18\x02 \x01(\t\x12\x13\n\x0bmax_area_pi\x18\x03 \x01(\x01\x12\x14\n\x07\x66whm_ps\x18\x04 \x01(\x01H\x00\x88\x01\x01\x12\x18\n\x0b\x62inding_mev\x18\x05 \x01(\x01H\x01\x88\x01\x01\x12\x19\n\x0c\x64\x65tuning_mev\x18\x06 \x01(\x01H\x02\x88\x01\x01\x12\x0c\n\x04note\x18\x07 \x01(\t\x12\x0f\n\x07\x64ry_run\x18\x08 \x01(\x08\x42\n\n\x08_fwhm_psB\x0e\n\x0c_binding_mevB\x0f\n\r_detuning_mev\"\xe4\x01\n\x1aPulseAreaCalibrationResult\x12\x30\n\x0b\x63\x61libration\x18\x01 \x01(\x0b\x32\x1b.gliss.v1.CalibrationRecord\x12\x1b\n\x13\x61rea_pi_per_sqrt_uw\x18\x02 \x01(\x01\x12!\n\x19sigma_area_pi_per_sqrt_uw\x18\x03 \x01(\x01\x12\x13\n\x0bpi_power_uw\x18\x04 \x01(\x01\x12\x19\n\x11sigma_pi_power_uw\x18\x05 \x01(\x01\x12\x12\n\nred_chi_sq\x18\x06 \x01(\x01\x12\x10\n\x08\x66it_json\x18\x07 \x01(\t*f\n\rAttenuatorLaw\x12\x1e\n\x1a\x41TTENUATOR_LAW_UNSPECIFIED\x10\x00\x12\x18\n\x14\x41TTENUATOR_LAW_MALUS\x10\x01\x12\x1b\n\x17\x41TTENUATOR_LAW_ND_WHEEL\x10\x02\x32\xde\x03\n\x12\x43\x61librationService\x12N\n\x0eGetCalibration\x12\x1f.gliss.v1.GetCalibrationRequest\x1a\x1b.gliss.v1.CalibrationRecord\x12Y\n\x10ListCalibrations\x12!.gliss.v1.ListCalibrationsRequest\x1a\".gliss.v1.ListCalibrationsResponse\x12N\n\x0ePutCalibration\x12\x1f.gliss.v1.PutCalibrationRequest\x1a\x1b.gliss.v1.CalibrationRecord\x12l\n\x18RunAttenuatorCalibration\x12).gliss.v1.RunAttenuatorCalibrationRequest\x1a%.gliss.v1.AttenuatorCalibrationResult\x12_\n\x12\x43\x61libratePulseArea\x12#.gliss.v1.CalibratePulseAreaRequest\x1a$.gliss.v1.PulseAreaCalibrationResultB1Z/github.com/gliss-lab/gliss/api/gliss/v1;glissv1b\x06proto3')
 
 _builder.BuildMessageAndEnumDescriptors(DESCRIPTOR, globals())
 _builder.BuildTopDescriptorsAndMessages(DESCRIPTOR, 'gliss.v1.calibration_pb2', globals())
@@ -22,6 +22,26 @@ if _descriptor._USE_C_DESCRIPTORS == False:
 
   DESCRIPTOR._options = None
   DESCRIPTOR._serialized_options = b'Z/github.com/gliss-lab/gliss/api/gliss/v1;glissv1'
+  _ATTENUATORLAW._serialized_start=1305
+  _ATTENUATORLAW._serialized_end=1407
   _CALIBRATIONRECORD._serialized_start=74
   _CALIBRATIONRECORD._serialized_end=205
+  _GETCALIBRATIONREQUEST._serialized_start=207
+  _GETCALIBRATIONREQUEST._serialized_end=264
+  _LISTCALIBRATIONSREQUEST._serialized_start=266
+  _LISTCALIBRATIONSREQUEST._serialized_end=291
+  _LISTCALIBRATIONSRESPONSE._serialized_start=293
+  _LISTCALIBRATIONSRESPONSE._serialized_end=395
+  _PUTCALIBRATIONREQUEST._serialized_start=397
+  _PUTCALIBRATIONREQUEST._serialized_end=452
+  _RUNATTENUATORCALIBRATIONREQUEST._serialized_start=455
+  _RUNATTENUATORCALIBRATIONREQUEST._serialized_end=625
+  _ATTENUATORCALIBRATIONRESULT._serialized_start=628
+  _ATTENUATORCALIBRATIONRESULT._serialized_end=836
+  _CALIBRATEPULSEAREAREQUEST._serialized_start=839
+  _CALIBRATEPULSEAREAREQUEST._serialized_end=1072
+  _PULSEAREACALIBRATIONRESULT._serialized_start=1075
+  _PULSEAREACALIBRATIONRESULT._serialized_end=1303
+  _CALIBRATIONSERVICE._serialized_start=1410
+  _CALIBRATIONSERVICE._serialized_end=1888
 # @@protoc_insertion_point(module_scope)

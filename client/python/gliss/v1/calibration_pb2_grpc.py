@@ -2,3 +2,221 @@
 """Client and server classes corresponding to protobuf-defined services."""
 import grpc
 
+from gliss.v1 import calibration_pb2 as gliss_dot_v1_dot_calibration__pb2
+
+
+class CalibrationServiceStub(object):
+    """CalibrationService keeps the daemon bench's calibration sets, versioned,
+    and runs the calibration procedures. A new version is used by every scan
+    submitted after it is stored (a scan records the version it used).
+    """
+
+    def __init__(self, channel):
+        """Constructor.
+
+        Args:
+            channel: A grpc.Channel.
+        """
+        self.GetCalibration = channel.unary_unary(
+                '/gliss.v1.CalibrationService/GetCalibration',
+                request_serializer=gliss_dot_v1_dot_calibration__pb2.GetCalibrationRequest.SerializeToString,
+                response_deserializer=gliss_dot_v1_dot_calibration__pb2.CalibrationRecord.FromString,
+                )
+        self.ListCalibrations = channel.unary_unary(
+                '/gliss.v1.CalibrationService/ListCalibrations',
+                request_serializer=gliss_dot_v1_dot_calibration__pb2.ListCalibrationsRequest.SerializeToString,
+                response_deserializer=gliss_dot_v1_dot_calibration__pb2.ListCalibrationsResponse.FromString,
+                )
+        self.PutCalibration = channel.unary_unary(
+                '/gliss.v1.CalibrationService/PutCalibration',
+                request_serializer=gliss_dot_v1_dot_calibration__pb2.PutCalibrationRequest.SerializeToString,
+                response_deserializer=gliss_dot_v1_dot_calibration__pb2.CalibrationRecord.FromString,
+                )
+        self.RunAttenuatorCalibration = channel.unary_unary(
+                '/gliss.v1.CalibrationService/RunAttenuatorCalibration',
+                request_serializer=gliss_dot_v1_dot_calibration__pb2.RunAttenuatorCalibrationRequest.SerializeToString,
+                response_deserializer=gliss_dot_v1_dot_calibration__pb2.AttenuatorCalibrationResult.FromString,
+                )
+        self.CalibratePulseArea = channel.unary_unary(
+                '/gliss.v1.CalibrationService/CalibratePulseArea',
+                request_serializer=gliss_dot_v1_dot_calibration__pb2.CalibratePulseAreaRequest.SerializeToString,
+                response_deserializer=gliss_dot_v1_dot_calibration__pb2.PulseAreaCalibrationResult.FromString,
+                )
+
+
+class CalibrationServiceServicer(object):
+    """CalibrationService keeps the daemon bench's calibration sets, versioned,
+    and runs the calibration procedures. A new version is used by every scan
+    submitted after it is stored (a scan records the version it used).
+    """
+
+    def GetCalibration(self, request, context):
+        """GetCalibration returns the set in use, or one version.
+        NotFound for a version never stored.
+        """
+        context.set_code(grpc.StatusCode.UNIMPLEMENTED)
+        context.set_details('Method not implemented!')
+        raise NotImplementedError('Method not implemented!')
+
+    def ListCalibrations(self, request, context):
+        """ListCalibrations lists every version of the bench, newest first
+        (version 0, the nominal set, last).
+        """
+        context.set_code(grpc.StatusCode.UNIMPLEMENTED)
+        context.set_details('Method not implemented!')
+        raise NotImplementedError('Method not implemented!')
+
+    def PutCalibration(self, request, context):
+        """PutCalibration stores a new version: the parts given in set_json
+        replace those of the set in use, the others are kept. InvalidArgument
+        (google.rpc.BadRequest naming the field, e.g. set_json.attenuator) when
+        a part is invalid; nothing is stored then.
+        """
+        context.set_code(grpc.StatusCode.UNIMPLEMENTED)
+        context.set_details('Method not implemented!')
+        raise NotImplementedError('Method not implemented!')
+
+    def RunAttenuatorCalibration(self, request, context):
+        """RunAttenuatorCalibration sweeps the attenuator angle, reads the power
+        meter at each angle, fits Malus's law or the ND-wheel law and (unless
+        dry_run) stores the fit as a new version. It holds the bench like a
+        manual command: FailedPrecondition while a scan holds it.
+        """
+        context.set_code(grpc.StatusCode.UNIMPLEMENTED)
+        context.set_details('Method not implemented!')
+        raise NotImplementedError('Method not implemented!')
+
+    def CalibratePulseArea(self, request, context):
+        """CalibratePulseArea fits the dot model's biexciton yield curve to a
+        stored zero-chirp power sweep and (unless dry_run) stores the
+        pulse-area calibration as a new version.
+        """
+        context.set_code(grpc.StatusCode.UNIMPLEMENTED)
+        context.set_details('Method not implemented!')
+        raise NotImplementedError('Method not implemented!')
+
+
+def add_CalibrationServiceServicer_to_server(servicer, server):
+    rpc_method_handlers = {
+            'GetCalibration': grpc.unary_unary_rpc_method_handler(
+                    servicer.GetCalibration,
+                    request_deserializer=gliss_dot_v1_dot_calibration__pb2.GetCalibrationRequest.FromString,
+                    response_serializer=gliss_dot_v1_dot_calibration__pb2.CalibrationRecord.SerializeToString,
+            ),
+            'ListCalibrations': grpc.unary_unary_rpc_method_handler(
+                    servicer.ListCalibrations,
+                    request_deserializer=gliss_dot_v1_dot_calibration__pb2.ListCalibrationsRequest.FromString,
+                    response_serializer=gliss_dot_v1_dot_calibration__pb2.ListCalibrationsResponse.SerializeToString,
+            ),
+            'PutCalibration': grpc.unary_unary_rpc_method_handler(
+                    servicer.PutCalibration,
+                    request_deserializer=gliss_dot_v1_dot_calibration__pb2.PutCalibrationRequest.FromString,
+                    response_serializer=gliss_dot_v1_dot_calibration__pb2.CalibrationRecord.SerializeToString,
+            ),
+            'RunAttenuatorCalibration': grpc.unary_unary_rpc_method_handler(
+                    servicer.RunAttenuatorCalibration,
+                    request_deserializer=gliss_dot_v1_dot_calibration__pb2.RunAttenuatorCalibrationRequest.FromString,
+                    response_serializer=gliss_dot_v1_dot_calibration__pb2.AttenuatorCalibrationResult.SerializeToString,
+            ),
+            'CalibratePulseArea': grpc.unary_unary_rpc_method_handler(
+                    servicer.CalibratePulseArea,
+                    request_deserializer=gliss_dot_v1_dot_calibration__pb2.CalibratePulseAreaRequest.FromString,
+                    response_serializer=gliss_dot_v1_dot_calibration__pb2.PulseAreaCalibrationResult.SerializeToString,
+            ),
+    }
+    generic_handler = grpc.method_handlers_generic_handler(
+            'gliss.v1.CalibrationService', rpc_method_handlers)
+    server.add_generic_rpc_handlers((generic_handler,))
+
+
+ # This class is part of an EXPERIMENTAL API.
+class CalibrationService(object):
+    """CalibrationService keeps the daemon bench's calibration sets, versioned,
+    and runs the calibration procedures. A new version is used by every scan
+    submitted after it is stored (a scan records the version it used).
+    """
+
+    @staticmethod
+    def GetCalibration(request,
+            target,
+            options=(),
+            channel_credentials=None,
+            call_credentials=None,
+            insecure=False,
+            compression=None,
+            wait_for_ready=None,
+            timeout=None,
+            metadata=None):
+        return grpc.experimental.unary_unary(request, target, '/gliss.v1.CalibrationService/GetCalibration',
+            gliss_dot_v1_dot_calibration__pb2.GetCalibrationRequest.SerializeToString,
+            gliss_dot_v1_dot_calibration__pb2.CalibrationRecord.FromString,
+            options, channel_credentials,
+            insecure, call_credentials, compression, wait_for_ready, timeout, metadata)
+
+    @staticmethod
+    def ListCalibrations(request,
+            target,
+            options=(),
+            channel_credentials=None,
+            call_credentials=None,
+            insecure=False,
+            compression=None,
+            wait_for_ready=None,
+            timeout=None,
+            metadata=None):
+        return grpc.experimental.unary_unary(request, target, '/gliss.v1.CalibrationService/ListCalibrations',
+            gliss_dot_v1_dot_calibration__pb2.ListCalibrationsRequest.SerializeToString,
+            gliss_dot_v1_dot_calibration__pb2.ListCalibrationsResponse.FromString,
+            options, channel_credentials,
+            insecure, call_credentials, compression, wait_for_ready, timeout, metadata)
+
+    @staticmethod
+    def PutCalibration(request,
+            target,
+            options=(),
+            channel_credentials=None,
+            call_credentials=None,
+            insecure=False,
+            compression=None,
+            wait_for_ready=None,
+            timeout=None,
+            metadata=None):
+        return grpc.experimental.unary_unary(request, target, '/gliss.v1.CalibrationService/PutCalibration',
+            gliss_dot_v1_dot_calibration__pb2.PutCalibrationRequest.SerializeToString,
+            gliss_dot_v1_dot_calibration__pb2.CalibrationRecord.FromString,
+            options, channel_credentials,
+            insecure, call_credentials, compression, wait_for_ready, timeout, metadata)
+
+    @staticmethod
+    def RunAttenuatorCalibration(request,
+            target,
+            options=(),
+            channel_credentials=None,
+            call_credentials=None,
+            insecure=False,
+            compression=None,
+            wait_for_ready=None,
+            timeout=None,
+            metadata=None):
+        return grpc.experimental.unary_unary(request, target, '/gliss.v1.CalibrationService/RunAttenuatorCalibration',
+            gliss_dot_v1_dot_calibration__pb2.RunAttenuatorCalibrationRequest.SerializeToString,
+            gliss_dot_v1_dot_calibration__pb2.AttenuatorCalibrationResult.FromString,
+            options, channel_credentials,
+            insecure, call_credentials, compression, wait_for_ready, timeout, metadata)
+
+    @staticmethod
+    def CalibratePulseArea(request,
+            target,
+            options=(),
+            channel_credentials=None,
+            call_credentials=None,
+            insecure=False,
+            compression=None,
+            wait_for_ready=None,
+            timeout=None,
+            metadata=None):
+        return grpc.experimental.unary_unary(request, target, '/gliss.v1.CalibrationService/CalibratePulseArea',
+            gliss_dot_v1_dot_calibration__pb2.CalibratePulseAreaRequest.SerializeToString,
+            gliss_dot_v1_dot_calibration__pb2.PulseAreaCalibrationResult.FromString,
+            options, channel_credentials,
+            insecure, call_credentials, compression, wait_for_ready, timeout, metadata)
