@@ -18,6 +18,7 @@ import (
 
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
 	"github.com/gliss-lab/gliss/client"
+	"github.com/gliss-lab/gliss/client/npy"
 )
 
 const scanSummary = "scans: submit, follow, control and export"
@@ -79,10 +80,11 @@ func init() {
 		register("scan", scanSummary, &Command{Name: c.name, Summary: c.summary, Usage: "ID [--reason TEXT]", Example: c.example, Run: runScanControl(c.name)})
 	}
 	register("scan", scanSummary, &Command{
-		Name: "export", Summary: "export a scan's stored points as CSV or JSON lines",
-		Usage:   "ID [--format csv|jsonl] -o FILE   (-o - writes standard output)",
-		Example: "gliss scan export 20261202T010203.456Z-a1b2c3 --format csv -o map.csv",
-		Run:     runScanExport,
+		Name: "export", Summary: "export a scan's stored points as CSV, JSON lines or NumPy arrays",
+		Usage: "ID [--format csv|jsonl|npy] -o FILE|DIR   (-o - writes standard output; npy writes a directory, or a .npz when -o ends in .npz)",
+		Example: "gliss scan export 20261202T010203.456Z-a1b2c3 --format csv -o map.csv\n" +
+			"gliss scan export 20261202T010203.456Z-a1b2c3 --format npy -o map.npz   (numpy.load(\"map.npz\")[\"counts_xx\"])",
+		Run: runScanExport,
 	})
 }
 
@@ -583,8 +585,8 @@ func runScanExport(ctx context.Context, env *Env, args []string) error {
 	c := groups["scan"].Commands["export"]
 	fs := NewFlagSet(env, "scan", c)
 	server := serverFlag(fs, env)
-	format := fs.String("format", "csv", "csv or jsonl")
-	out := fs.String("o", "", "output file (- for standard output; required)")
+	format := fs.String("format", "csv", "csv, jsonl or npy (NumPy arrays: the axis vectors and one counts_CHANNEL array per channel shaped by the axes, NaN where no point is stored)")
+	out := fs.String("o", "", "output file (- for standard output; required); for npy a directory, or a file ending in .npz")
 	if err := Parse(fs, reorder(args)); err != nil {
 		return err
 	}
@@ -594,6 +596,9 @@ func runScanExport(ctx context.Context, env *Env, args []string) error {
 	}
 	if *out == "" {
 		return Usagef("gliss scan export: -o FILE is required (- for standard output)")
+	}
+	if *format == "npy" {
+		return exportNPY(ctx, env, *server, id, *out)
 	}
 	write, err := exporter(*format)
 	if err != nil {
@@ -626,7 +631,39 @@ func exporter(format string) (exportFunc, error) {
 			return client.WriteJSONL(w, sc, pts)
 		}, nil
 	}
-	return nil, Usagef("--format %q: use csv or jsonl", format)
+	return nil, Usagef("--format %q: use csv, jsonl or npy", format)
+}
+
+// exportNPY writes NumPy arrays into a directory, or a .npz file.
+func exportNPY(ctx context.Context, env *Env, server, id, out string) error {
+	if out == "-" {
+		return Usagef("--format npy -o -: NumPy arrays go to a directory or a .npz file (e.g. -o map.npz)")
+	}
+	cl, err := dial(ctx, server)
+	if err != nil {
+		return err
+	}
+	defer cl.Close()
+	sc, err := cl.Get(ctx, id)
+	if err != nil {
+		return rpcError(err, nil)
+	}
+	if npy.IsNPZPath(out) {
+		return writeOut(env, out, func(w io.Writer) (uint64, error) {
+			return client.WriteNPY(npy.NewNPZ(w), sc, cl.Points(ctx, id, 0))
+		})
+	}
+	dir, err := npy.NewDir(out)
+	if err != nil {
+		return fmt.Errorf("-o %s: %w", out, err)
+	}
+	n, err := client.WriteNPY(dir, sc, cl.Points(ctx, id, 0))
+	if err != nil {
+		dir.Close()
+		return fmt.Errorf("-o %s: %w", out, err)
+	}
+	fmt.Fprintf(env.Stderr, "wrote %d points to %s (one .npy per axis and channel)\n", n, out)
+	return nil
 }
 
 // writeOut writes to a file atomically (temporary file, then rename), or to stdout.
