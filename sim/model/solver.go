@@ -15,9 +15,13 @@ import (
 //     diagonal energies E_j + S_j·t integrate in closed form to the phases
 //     φ_j(t), so the right-hand side is proportional to Ω(t) (plus slow decay
 //     terms) and the steps grow long wherever the pulse is weak.
-//   - The time-dependent coefficients (Ω and the two phase factors) are
-//     computed once per stage time and shared between the stage that ends a
-//     step and the first stage of the next.
+//   - The time-dependent coefficients (Ω and the two phase factors) do not
+//     depend on the state: all eleven stage times of a step are computed
+//     first (independent chains the processor overlaps), and the last is
+//     shared with the first stage of the next step.
+//   - Several points that differ only in pulse area can share one step
+//     sequence and one set of coefficients (lanes; used by Map), each lane
+//     still meeting the tolerance.
 //   - Without decay it integrates the state vector (6 reals); with decay the
 //     density matrix (9 reals) plus the two emitted-photon integrals γ·∫ρ dt as
 //     extra components, so the yields come with the same error control.
