@@ -20,6 +20,7 @@ import (
 //	scans.created  created-at key (12 bytes) ‖ scan id → empty; the listing order
 //	points         scan id → nested bucket: seq (8 bytes big-endian) → glissv1.Point
 //	audit          sequence (8 bytes big-endian) → AuditEntry (JSON)
+//	calibrations   bench name → nested bucket: version (8 bytes big-endian) → glissv1.CalibrationRecord
 //
 // The created-at key is the record's created_at seconds with the sign bit
 // flipped (so negative times sort first) followed by its nanoseconds, both
@@ -30,6 +31,8 @@ var (
 	bucketByCreated = []byte("scans.created")
 	bucketPoints    = []byte("points")
 	bucketAudit     = []byte("audit")
+	// bucketCalibrations is created on open, also in a file written before it existed.
+	bucketCalibrations = []byte("calibrations")
 
 	keyLayout     = []byte("layout")
 	layoutVersion = []byte("1")
@@ -49,7 +52,7 @@ func initLayout(tx *bolt.Tx) error {
 	} else if !bytes.Equal(v, layoutVersion) {
 		return fmt.Errorf("file layout version %q, this glissd reads version %q only", v, layoutVersion)
 	}
-	for _, name := range [][]byte{bucketScans, bucketByCreated, bucketPoints, bucketAudit} {
+	for _, name := range [][]byte{bucketScans, bucketByCreated, bucketPoints, bucketAudit, bucketCalibrations} {
 		if _, err := tx.CreateBucketIfNotExists(name); err != nil {
 			return fmt.Errorf("bucket %s: %w", name, err)
 		}
@@ -254,6 +257,8 @@ func (w *writeTx) apply(o *op, i int) (opErr, fatal error) {
 			return nil, fmt.Errorf("audit: %w", err)
 		}
 		return nil, nil
+	case opCalibration:
+		return w.putCalibration(o, i)
 	case opSync:
 		return nil, nil
 	}
