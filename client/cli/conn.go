@@ -6,6 +6,7 @@ import (
 	"flag"
 	"fmt"
 	"strings"
+	"sync"
 
 	"google.golang.org/genproto/googleapis/rpc/errdetails"
 	"google.golang.org/grpc/codes"
@@ -14,17 +15,85 @@ import (
 	"github.com/gliss-lab/gliss/client"
 )
 
-// serverFlag adds --server (default $GLISS_SERVER, else 127.0.0.1:7355).
+// connFlags are the connection flags serverFlag adds beside --server.
+type connFlags struct {
+	server    *string
+	tokenFile *string
+	caCert    *string
+	envToken  string
+}
+
+// connSets remembers the connection flags of the latest flag sets, so that
+// dial(ctx, addr) finds the token and CA flags parsed with that --server.
+var (
+	connMu   sync.Mutex
+	connSets []*connFlags
+)
+
+const maxConnSets = 64
+
+// serverFlag adds --server (default $GLISS_SERVER, else 127.0.0.1:7355),
+// --token-file (default $GLISS_TOKEN_FILE; the token itself may be given
+// in $GLISS_TOKEN) and --ca-cert (default $GLISS_CA_CERT).
 func serverFlag(fs *flag.FlagSet, env *Env) *string {
 	def := env.Getenv("GLISS_SERVER")
 	if def == "" {
 		def = client.DefaultAddr
 	}
-	return fs.String("server", def, "glissd address host:port (env GLISS_SERVER)")
+	cf := &connFlags{
+		server:    fs.String("server", def, "glissd address host:port (env GLISS_SERVER)"),
+		tokenFile: fs.String("token-file", env.Getenv("GLISS_TOKEN_FILE"), "file holding your bearer token for glissd (env GLISS_TOKEN_FILE; or give the token itself in GLISS_TOKEN)"),
+		caCert:    fs.String("ca-cert", env.Getenv("GLISS_CA_CERT"), "PEM certificate to trust for glissd's TLS: connect over TLS (env GLISS_CA_CERT)"),
+		envToken:  strings.TrimSpace(env.Getenv("GLISS_TOKEN")),
+	}
+	connMu.Lock()
+	connSets = append(connSets, cf)
+	if len(connSets) > maxConnSets {
+		connSets = append(connSets[:0:0], connSets[len(connSets)-maxConnSets:]...)
+	}
+	connMu.Unlock()
+	return cf.server
+}
+
+// connFor returns the connection flags parsed with --server addr (the
+// latest flag set whose --server is addr).
+func connFor(addr string) *connFlags {
+	connMu.Lock()
+	defer connMu.Unlock()
+	for i := len(connSets) - 1; i >= 0; i-- {
+		if *connSets[i].server == addr {
+			return connSets[i]
+		}
+	}
+	return nil
+}
+
+// dialOptions turns the connection flags into client options.
+func (cf *connFlags) dialOptions() ([]client.DialOption, error) {
+	var opts []client.DialOption
+	switch {
+	case cf == nil:
+	case *cf.tokenFile != "":
+		tok, err := client.ReadToken(*cf.tokenFile)
+		if err != nil {
+			return nil, &UsageError{Msg: "--token-file: " + err.Error()}
+		}
+		opts = append(opts, client.WithToken(tok))
+	case cf.envToken != "":
+		opts = append(opts, client.WithToken(cf.envToken))
+	}
+	if cf != nil && *cf.caCert != "" {
+		opts = append(opts, client.WithTLS(*cf.caCert))
+	}
+	return opts, nil
 }
 
 func dial(ctx context.Context, addr string) (*client.Client, error) {
-	return client.Dial(ctx, addr)
+	opts, err := connFor(addr).dialOptions()
+	if err != nil {
+		return nil, err
+	}
+	return client.Dial(ctx, addr, opts...)
 }
 
 // rpcError turns a gRPC error into a message a person can act on. Field
@@ -71,6 +140,8 @@ func rpcError(err error, fieldFlags map[string]string) error {
 		return fmt.Errorf("%s", st.Message())
 	case codes.Unavailable:
 		return fmt.Errorf("glissd unavailable: %s", st.Message())
+	case codes.Unauthenticated, codes.PermissionDenied:
+		return fmt.Errorf("glissd refused: %s", st.Message())
 	}
 	return errors.New(st.Message())
 }

@@ -4,6 +4,10 @@
 // gliss.v1 gRPC API.
 //
 //	glissd --listen 127.0.0.1:7355 --data DIR [--bench FILE]
+//	glissd --listen 0.0.0.0:7355 --data DIR --tls-cert CERT.pem --tls-key KEY.pem --tokens TOKENS
+//
+// Listening beyond loopback needs TLS and a token file (one "NAME ROLE TOKEN"
+// a line, ROLE observe or operate, mode 600; see service/auth).
 package main
 
 import (
@@ -34,10 +38,13 @@ func run(args []string) int {
 	record := fs.String("record", "", "write every instrument transaction (time, instrument, sent, received, latency) as JSON lines to a new file in this directory")
 	autoResume := fs.Bool("auto-resume", false, "continue INTERRUPTED scans at start, from their first point not stored")
 	logLevel := fs.String("log-level", "info", "debug, info, warn or error")
+	tlsCert := fs.String("tls-cert", "", "PEM certificate to serve TLS with (with --tls-key; required beyond loopback)")
+	tlsKey := fs.String("tls-key", "", "PEM private key of --tls-cert")
+	tokens := fs.String("tokens", "", "bearer-token file, one `NAME ROLE TOKEN` a line, ROLE observe or operate, mode 600 (required beyond loopback)")
 	fs.Usage = func() {
 		fmt.Fprintf(fs.Output(), "glissd: the gliss daemon\n\nUsage: glissd --data DIR [--listen ADDR] [--bench FILE] [flags]\n\nFlags:\n")
 		fs.PrintDefaults()
-		fmt.Fprintf(fs.Output(), "\nExample:\n  glissd --data ~/gliss-data --sim-speed 100\n")
+		fmt.Fprintf(fs.Output(), "\nExamples:\n  glissd --data ~/gliss-data --sim-speed 100\n  glissd --data ~/gliss-data --listen 0.0.0.0:7355 --tls-cert cert.pem --tls-key key.pem --tokens tokens.txt\n")
 	}
 	if err := fs.Parse(args); err != nil {
 		if err == flag.ErrHelp {
@@ -70,6 +77,7 @@ func run(args []string) int {
 	d, err := daemon.Start(ctx, daemon.Config{
 		Listen: *listen, DataDir: *data, BenchFile: *benchFile, OpenBench: benchOpener(*record, log),
 		SimSeed: *seed, SimSpeed: *speed, SimInstant: *instant, AutoResume: *autoResume, Logger: log,
+		TLSCertFile: *tlsCert, TLSKeyFile: *tlsKey, TokensFile: *tokens,
 	})
 	if err != nil {
 		fmt.Fprintln(os.Stderr, "glissd:", err)

@@ -5,16 +5,19 @@ package daemon
 
 import (
 	"context"
+	"crypto/tls"
 	"errors"
 	"fmt"
 	"log/slog"
 	"net"
 	"os"
 	"path/filepath"
+	"strings"
 	"sync"
 	"time"
 
 	"google.golang.org/grpc"
+	"google.golang.org/grpc/credentials"
 	"google.golang.org/grpc/health"
 	healthpb "google.golang.org/grpc/health/grpc_health_v1"
 	"google.golang.org/grpc/keepalive"
@@ -22,10 +25,11 @@ import (
 
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
 	"github.com/gliss-lab/gliss/drivers"
-	simbench "github.com/gliss-lab/gliss/sim/bench"
+	"github.com/gliss-lab/gliss/service/auth"
 	"github.com/gliss-lab/gliss/service/engine"
 	"github.com/gliss-lab/gliss/service/rpc"
 	"github.com/gliss-lab/gliss/service/store"
+	simbench "github.com/gliss-lab/gliss/sim/bench"
 )
 
 // DefaultListen is the daemon's default address: loopback only.
@@ -51,6 +55,18 @@ type Config struct {
 	// AutoResume queues INTERRUPTED scans again at start.
 	AutoResume bool
 	Logger     *slog.Logger
+
+	// TLSCertFile and TLSKeyFile (PEM) make the daemon serve TLS. Both or
+	// neither.
+	TLSCertFile, TLSKeyFile string
+	// TokensFile is the bearer-token file (see package auth for its
+	// format). Without it every caller may do everything (loopback only).
+	TokensFile string
+	// Bench, when set, is the bench to run (it wins over BenchFile and the
+	// simulated bench); the daemon closes it on Stop.
+	Bench *drivers.Bench
+	// PointTimeout bounds one point's instrument work (0: the engine's default).
+	PointTimeout time.Duration
 }
 
 // Daemon is a running glissd.
@@ -94,8 +110,33 @@ func Start(ctx context.Context, cfg Config) (*Daemon, error) {
 	if cfg.Listen == "" {
 		cfg.Listen = DefaultListen
 	}
-	if !IsLoopback(cfg.Listen) {
-		return nil, fmt.Errorf("--listen %s is not a loopback address: listening beyond this machine needs TLS and bearer tokens, which this glissd is not configured with", cfg.Listen)
+	if (cfg.TLSCertFile == "") != (cfg.TLSKeyFile == "") {
+		return nil, errors.New("--tls-cert and --tls-key go together: give both PEM files, or neither")
+	}
+	if !IsLoopback(cfg.Listen) && (cfg.TLSCertFile == "" || cfg.TokensFile == "") {
+		var missing []string
+		if cfg.TLSCertFile == "" {
+			missing = append(missing, "--tls-cert FILE --tls-key FILE")
+		}
+		if cfg.TokensFile == "" {
+			missing = append(missing, "--tokens FILE")
+		}
+		return nil, fmt.Errorf("--listen %s is not a loopback address: listening beyond this machine needs TLS and bearer tokens; add %s (or listen on 127.0.0.1)", cfg.Listen, strings.Join(missing, " and "))
+	}
+	var serverOpts []grpc.ServerOption
+	if cfg.TLSCertFile != "" {
+		cert, err := tls.LoadX509KeyPair(cfg.TLSCertFile, cfg.TLSKeyFile)
+		if err != nil {
+			return nil, fmt.Errorf("--tls-cert %s --tls-key %s: %w", cfg.TLSCertFile, cfg.TLSKeyFile, err)
+		}
+		serverOpts = append(serverOpts, grpc.Creds(credentials.NewTLS(&tls.Config{Certificates: []tls.Certificate{cert}, MinVersion: tls.VersionTLS12})))
+	}
+	var tokens *auth.Tokens
+	if cfg.TokensFile != "" {
+		var err error
+		if tokens, err = auth.LoadTokens(cfg.TokensFile); err != nil {
+			return nil, fmt.Errorf("--tokens: %w", err)
+		}
 	}
 	if cfg.DataDir == "" {
 		return nil, errors.New("--data: give a directory for the scan store")
@@ -112,7 +153,7 @@ func Start(ctx context.Context, cfg Config) (*Daemon, error) {
 		st.Close()
 		return nil, err
 	}
-	eng := engine.New(b, st, engine.Options{Logger: log})
+	eng := engine.New(b, st, engine.Options{Logger: log, PointTimeout: cfg.PointTimeout})
 	if err := eng.Recover(ctx, cfg.AutoResume); err != nil {
 		b.Close()
 		st.Close()
@@ -124,13 +165,18 @@ func Start(ctx context.Context, cfg Config) (*Daemon, error) {
 		st.Close()
 		return nil, fmt.Errorf("--listen %s: %w", cfg.Listen, err)
 	}
-	srv := grpc.NewServer(
+	guard := &auth.Guard{Tokens: tokens, Audit: st, Logger: log}
+	srv := grpc.NewServer(append(serverOpts,
 		// Overnight watches cross lab networks: keep idle links alive.
 		grpc.KeepaliveParams(keepalive.ServerParameters{Time: 30 * time.Second, Timeout: 10 * time.Second}),
 		grpc.KeepaliveEnforcementPolicy(keepalive.EnforcementPolicy{MinTime: 10 * time.Second, PermitWithoutStream: true}),
-	)
+		// Every call: token and role checked, operate calls audited.
+		grpc.ChainUnaryInterceptor(guard.Unary),
+		grpc.ChainStreamInterceptor(guard.Stream),
+	)...)
 	glissv1.RegisterScanServiceServer(srv, &rpc.Scans{Engine: eng})
 	glissv1.RegisterBenchServiceServer(srv, &rpc.Bench{Engine: eng})
+	glissv1.RegisterAuditServiceServer(srv, &rpc.Audit{Store: st})
 	extra, err := registerServices(ctx, srv, eng, st, b, cfg)
 	if err != nil {
 		lis.Close()
@@ -143,6 +189,7 @@ func Start(ctx context.Context, cfg Config) (*Daemon, error) {
 	hs.SetServingStatus("", healthpb.HealthCheckResponse_SERVING)
 	hs.SetServingStatus(glissv1.ScanService_ServiceDesc.ServiceName, healthpb.HealthCheckResponse_SERVING)
 	hs.SetServingStatus(glissv1.BenchService_ServiceDesc.ServiceName, healthpb.HealthCheckResponse_SERVING)
+	hs.SetServingStatus(glissv1.AuditService_ServiceDesc.ServiceName, healthpb.HealthCheckResponse_SERVING)
 	reflection.Register(srv)
 
 	ectx, cancel := context.WithCancel(context.WithoutCancel(ctx))
@@ -150,11 +197,21 @@ func Start(ctx context.Context, cfg Config) (*Daemon, error) {
 		cancel: cancel, engDone: make(chan error, 1), srvDone: make(chan error, 1)}
 	go func() { d.engDone <- eng.Run(ectx) }()
 	go func() { d.srvDone <- srv.Serve(lis) }()
-	log.Info("glissd serving", "listen", lis.Addr().String(), "data", cfg.DataDir, "bench", b.Name, "instruments", len(b.Entries))
+	access := "no tokens (loopback only)"
+	if tokens != nil {
+		access = fmt.Sprintf("%d bearer tokens", tokens.Len())
+	}
+	log.Info("glissd serving", "listen", lis.Addr().String(), "tls", cfg.TLSCertFile != "", "access", access, "data", cfg.DataDir, "bench", b.Name, "instruments", len(b.Entries))
 	return d, nil
 }
 
 func openBench(ctx context.Context, cfg Config, log *slog.Logger) (*drivers.Bench, error) {
+	if cfg.Bench != nil {
+		if err := cfg.Bench.Validate(); err != nil {
+			return nil, fmt.Errorf("bench %q: %w", cfg.Bench.Name, err)
+		}
+		return cfg.Bench, nil
+	}
 	if cfg.BenchFile != "" {
 		if cfg.OpenBench == nil {
 			return nil, fmt.Errorf("--bench %s: this build cannot load bench files", cfg.BenchFile)
