@@ -5,6 +5,7 @@ import (
 
 	"github.com/gliss-lab/gliss/drivers"
 	"github.com/gliss-lab/gliss/drivers/calib"
+	"github.com/gliss-lab/gliss/sim/cryostat"
 )
 
 // DemoStretcher is the demo stretcher of PHYSICS.md: 1800 lines/mm in
@@ -37,6 +38,9 @@ const (
 	NamePowerMeter = "powermeter"
 	NameLaser      = "laser"
 	NameCounter    = "counter"
+	// NameThermometer is the cryostat's temperature controller (role
+	// drivers.RoleThermometer).
+	NameThermometer = "cryostat"
 )
 
 // Limits of the simulated instruments, as a bench file would give them.
@@ -65,6 +69,9 @@ func counterLimits() drivers.Limits {
 
 func limitsFor(r drivers.Role) drivers.Limits {
 	switch r {
+	case drivers.RoleThermometer:
+		lo, hi := cryostat.Demo().MinK, cryostat.Demo().MaxK
+		return drivers.Limits{TemperatureMinK: lo, TemperatureMaxK: hi}
 	case drivers.RoleStage:
 		return stageLimits()
 	case drivers.RoleAttenuator:
@@ -80,12 +87,15 @@ func limitsFor(r drivers.Role) drivers.Limits {
 }
 
 // Limits returns the software limits of the simulated instrument of role r
-// (what New puts in its entries; a bench file naming driver "sim" should use
-// the same or narrower ones).
+// (what New puts in its entries with the zero Options; a bench file naming
+// driver "sim" should use the same or narrower ones). For the thermometer
+// they are the demo cryostat's range, 1.5–300 K; New with other
+// Options.Cryostat limits uses that cryostat's range.
 func Limits(r drivers.Role) drivers.Limits { return limitsFor(r) }
 
 // New builds the built-in simulated bench: a stage, an attenuator, a power
-// meter, a laser and a counter sharing one optical state. Its Calibration is
+// meter, a laser, a counter and the cryostat's thermometer sharing one
+// optical state and one sample. Its Calibration is
 // the nominal demo calibration (DemoStretcher, DemoAttenuator), whatever the
 // truth in o.
 func New(o Options) (*drivers.Bench, error) {
@@ -107,8 +117,7 @@ func New(o Options) (*drivers.Bench, error) {
 		{NamePowerMeter, drivers.RolePowerMeter},
 		{NameLaser, drivers.RoleLaser},
 		{NameCounter, drivers.RoleCounter},
-		// The simulated cryostat thermometer (drivers.RoleThermometer) joins
-		// here once it exists: add a case to openOn and a line to this list.
+		{NameThermometer, drivers.RoleThermometer},
 	}
 	for _, r := range roles {
 		inst, err := openOn(st, r.name, r.role)
@@ -116,7 +125,11 @@ func New(o Options) (*drivers.Bench, error) {
 			b.Close()
 			return nil, fmt.Errorf("sim bench: %w", err)
 		}
-		b.Entries = append(b.Entries, &drivers.Entry{Name: r.name, Role: r.role, Driver: DriverName, Limits: limitsFor(r.role), Inst: inst})
+		lim := limitsFor(r.role)
+		if r.role == drivers.RoleThermometer {
+			lim = thermometerLimits(st.cryo)
+		}
+		b.Entries = append(b.Entries, &drivers.Entry{Name: r.name, Role: r.role, Driver: DriverName, Limits: lim, Inst: inst})
 	}
 	if err := b.Validate(); err != nil {
 		b.Close()
@@ -158,6 +171,13 @@ func openOn(st *state, name string, r drivers.Role) (drivers.Instrument, error) 
 			return nil, err
 		}
 		return newCounter(b), nil
+	case drivers.RoleThermometer:
+		// One sample, one cryostat: at most one thermometer per state.
+		b, err := newBaseOwning(st, string(r), name, false, true)
+		if err != nil {
+			return nil, err
+		}
+		return &Thermometer{base: b, c: st.cryo}, nil
 	}
 	return nil, fmt.Errorf("instrument %q: the sim driver has no %q role (roles: %v)", name, r, simRoles)
 }

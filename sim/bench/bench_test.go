@@ -13,6 +13,7 @@ import (
 	"github.com/gliss-lab/gliss/drivers/calib"
 	"github.com/gliss-lab/gliss/sim/detection"
 	"github.com/gliss-lab/gliss/sim/model"
+	"github.com/gliss-lab/gliss/sim/phonon"
 )
 
 func newBench(t testing.TB, o Options) *drivers.Bench {
@@ -33,7 +34,7 @@ func TestNewBench(t *testing.T) {
 	if err := b.Validate(); err != nil {
 		t.Fatal(err)
 	}
-	if b.Stage() == nil || b.Attenuator() == nil || b.PowerMeter() == nil || b.Laser() == nil || b.Counter() == nil {
+	if b.Stage() == nil || b.Attenuator() == nil || b.PowerMeter() == nil || b.Laser() == nil || b.Counter() == nil || b.Thermometer() == nil {
 		t.Fatal("a role is missing")
 	}
 	if b.Calibration.Stretcher != DemoStretcher() || b.Calibration.Attenuator != DemoAttenuator() {
@@ -43,13 +44,20 @@ func TestNewBench(t *testing.T) {
 	if lim.StageMinMM != 0 || lim.StageMaxMM != 1200 || lim.StageSpeedMMPerS != 25 || lim.StageAccelMMPerS2 != 50 {
 		t.Errorf("stage limits %+v", lim)
 	}
+	// The demo cryostat's range (sim/cryostat.Demo): base 1.5 K, top 300 K.
+	if lim := b.ByRole(drivers.RoleThermometer).Limits; lim.TemperatureMinK != 1.5 || lim.TemperatureMaxK != 300 || Limits(drivers.RoleThermometer).TemperatureMaxK != 300 {
+		t.Errorf("thermometer limits %+v", lim)
+	}
+	if _, ok := b.Thermometer().(drivers.Stabilizer); !ok {
+		t.Error("the thermometer cannot wait for a stable temperature (no drivers.Stabilizer)")
+	}
 	if got := b.ByRole(drivers.RoleCounter).Limits.CountRateMaxHz; got["x"] <= 0 || got["xx"] <= 0 {
 		t.Errorf("counter ceiling %v", got)
 	}
 	want := map[drivers.Role]string{
 		drivers.RoleStage: "gliss sim stage v1", drivers.RoleAttenuator: "gliss sim attenuator v1",
 		drivers.RolePowerMeter: "gliss sim powermeter v1", drivers.RoleLaser: "gliss sim laser v1",
-		drivers.RoleCounter: "gliss sim counter v1",
+		drivers.RoleCounter: "gliss sim counter v1", drivers.RoleThermometer: "gliss sim thermometer v1",
 	}
 	for _, e := range b.Entries {
 		id, ok := e.Inst.(drivers.Identifier)
@@ -401,8 +409,10 @@ func TestDeterminism(t *testing.T) {
 // optical state: GDD from the demo stretcher's slope of PHYSICS.md
 // (0.04433 ps²/mm about 600 mm), power from Malus's law with the demo
 // attenuator (0.05..200 µW, θ0 = 0; Hecht §8.2), Θ = π·sqrt(P/1 µW) (demo
-// coupling), then the dot model and the detection chain.
-func modelRates(t *testing.T, stageMM, angleDeg, detuningMeV float64) []float64 {
+// coupling), then the dot model with the bath (sim/phonon, checked against
+// QuTiP's brmesolve there; nil or α = 0: the plain sim/model) and the
+// detection chain.
+func modelRates(t *testing.T, stageMM, angleDeg, detuningMeV float64, bath *phonon.Bath) []float64 {
 	t.Helper()
 	slope, _ := DemoStretcher().SlopePS2PerMM() // checked against 0.04433 in TestDemoCalibrations
 	c := math.Cos(2 * angleDeg * math.Pi / 180)
@@ -411,19 +421,35 @@ func modelRates(t *testing.T, stageMM, angleDeg, detuningMeV float64) []float64 
 	p.GDDPS2 = slope * (stageMM - 600)
 	p.AreaPi = math.Sqrt(pUW / 1.0)
 	p.DetuningMeV = detuningMeV
-	r, err := model.Solve(p)
+	r, err := phonon.Solve(p, bath)
 	if err != nil {
 		t.Fatal(err)
 	}
 	return detection.Demo().RatesHz([]float64{r.NX, r.NXX})
 }
 
+// demoBathAt is the demo dot's phonons (PHYSICS.md §7) with the sample at k.
+func demoBathAt(k float64) *phonon.Bath {
+	b := phonon.DemoBath()
+	b.TemperatureK = k
+	return &b
+}
+
 // The counter's mean counts agree with the model yields × the detection
 // chain within Poisson error at a zero-chirp π pulse, on the 20 ps² plateau
-// and detuned.
+// and detuned: with the demo dot's phonons at the cryostat's 4.2 K (the
+// default bench) and without phonons (Options.Bath with α = 0).
 func TestCountsFollowModel(t *testing.T) {
+	t.Run("phonons at 4.2 K", func(t *testing.T) {
+		countsFollowModel(t, newBench(t, Options{Seed: 9, Instant: true, PowerNoiseRel: -1}), demoBathAt(4.2))
+	})
+	t.Run("no phonons", func(t *testing.T) {
+		countsFollowModel(t, newBench(t, Options{Seed: 9, Instant: true, PowerNoiseRel: -1, Bath: &phonon.Bath{}}), nil)
+	})
+}
+
+func countsFollowModel(t *testing.T, b *drivers.Bench, bath *phonon.Bath) {
 	ctx := context.Background()
-	b := newBench(t, Options{Seed: 9, Instant: true, PowerNoiseRel: -1})
 	angle1uW, err := DemoAttenuator().AngleDeg(1.0) // Θ = π
 	if err != nil {
 		t.Fatal(err)
@@ -452,7 +478,7 @@ func TestCountsFollowModel(t *testing.T) {
 		mm, _ := b.Stage().PositionMM(ctx)
 		deg, _ := b.Attenuator().AngleDeg(ctx)
 		det, _ := b.Laser().DetuningMeV(ctx)
-		want := modelRates(t, mm, deg, det)
+		want := modelRates(t, mm, deg, det, bath)
 		const n, gate = 40, 500 * time.Millisecond
 		sum := make([]float64, 2)
 		for range n {
@@ -472,10 +498,12 @@ func TestCountsFollowModel(t *testing.T) {
 				t.Errorf("%s, %s: mean %g counts per gate, model × chain %g ± %g", c.name, ch, mean, mu, sigma)
 			}
 		}
-		if c.name == "20 ps², 10π plateau" {
-			// A strongly chirped drive reaches full biexciton population
-			// (PHYSICS.md §6, fact of the trade, common practice): the xx
-			// rate is near f_rep·η_xx = 400 kHz before dead time.
+		if c.name == "20 ps², 10π plateau" && bath == nil {
+			// Without phonons a strongly chirped drive reaches full
+			// biexciton population (PHYSICS.md §6, fact of the trade,
+			// common practice): the xx rate is near f_rep·η_xx = 400 kHz
+			// before dead time. (At 4.2 K the demo phonons take about 10 %
+			// of it: phonon.Solve gives n_xx ≈ 0.90.)
 			if r := sum[1] / n / gate.Seconds(); r < 0.9*400e3/(1+400e3*25e-9) {
 				t.Errorf("plateau xx rate %g /s, want near 400 kHz", r)
 			}
@@ -506,7 +534,7 @@ func TestLaserNoiseBroadensCounts(t *testing.T) {
 	mm, _ := b.Stage().PositionMM(ctx)
 	deg, _ := b.Attenuator().AngleDeg(ctx)
 	const gate = 100 * time.Millisecond
-	mu := modelRates(t, mm, deg, 0)[1] * gate.Seconds()
+	mu := modelRates(t, mm, deg, 0, demoBathAt(4.2))[1] * gate.Seconds()
 	// dμ/d(P/P0) by central differences of the model at P0·(1 ± 1 %).
 	c := math.Cos(2 * deg * math.Pi / 180)
 	p0 := 0.05 + (200-0.05)*c*c
@@ -515,7 +543,7 @@ func TestLaserNoiseBroadensCounts(t *testing.T) {
 		slope, _ := DemoStretcher().SlopePS2PerMM()
 		p.GDDPS2 = slope * (mm - 600)
 		p.AreaPi = math.Sqrt(pUW)
-		r, err := model.Solve(p)
+		r, err := phonon.Solve(p, demoBathAt(4.2)) // the default bench: demo phonons at 4.2 K
 		if err != nil {
 			t.Fatal(err)
 		}

@@ -49,8 +49,9 @@ func TestExampleBenchFileOpensSharedState(t *testing.T) {
 		t.Fatal(err)
 	}
 	// 20 ps², 10π: the plateau, about 40 000 xx per 100 ms (PHYSICS.md §6
-	// fact of the trade; 80 MHz × 0.5 %).
-	if c[1] < 35000 {
+	// fact of the trade; 80 MHz × 0.5 %), less the ≈ 10 % the demo phonons
+	// take at 4.2 K (phonon.Solve: n_xx ≈ 0.90).
+	if c[1] < 33000 {
 		t.Errorf("xx %d per 100 ms on the plateau: the counter does not see the stage and attenuator", c[1])
 	}
 	if err := InjectFault(b, b.ByRole(drivers.RoleStage).Name, Fault{Kind: FaultError, Calls: 1}); err != nil {

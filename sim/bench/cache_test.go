@@ -4,6 +4,7 @@ import (
 	"testing"
 
 	"github.com/gliss-lab/gliss/sim/model"
+	"github.com/gliss-lab/gliss/sim/phonon"
 )
 
 // The yield cache changes speed, never results: a bench whose cache holds a
@@ -20,7 +21,11 @@ func TestYieldCacheDoesNotChangeResults(t *testing.T) {
 
 func TestYieldCacheLRU(t *testing.T) {
 	yc := newYieldCache(2)
-	k := func(g float64) model.Params { p := model.DemoParams(); p.GDDPS2 = g; return p }
+	k := func(g float64) yieldKey {
+		p := model.DemoParams()
+		p.GDDPS2 = g
+		return yieldKey{p: p, b: phonon.DemoBath()}
+	}
 	yc.put(k(1), [2]float64{1, 1})
 	yc.put(k(2), [2]float64{2, 2})
 	if _, ok := yc.get(k(1)); !ok { // 1 is now the most recent
@@ -37,5 +42,32 @@ func TestYieldCacheLRU(t *testing.T) {
 	}
 	if yc.order.Len() != 2 || len(yc.byKey) != 2 {
 		t.Errorf("cache holds %d/%d entries, capacity 2", yc.order.Len(), len(yc.byKey))
+	}
+}
+
+// The sample temperature is part of the key: the same optical state at
+// another temperature is another entry, and a temperature within the 0.01 K
+// rounding of the counter is the same one.
+func TestYieldCacheKeyHasTemperature(t *testing.T) {
+	yc := newYieldCache(4)
+	p := model.DemoParams()
+	var tr truth
+	tr.bath = phonon.DemoBath()
+	yc.put(yieldKey{p, tr.bathAt(4.2)}, [2]float64{1, 1})
+	if _, ok := yc.get(yieldKey{p, tr.bathAt(8)}); ok {
+		t.Error("8 K found the 4.2 K entry")
+	}
+	if _, ok := yc.get(yieldKey{p, tr.bathAt(4.2 + 0.004)}); !ok {
+		t.Error("4.204 K (rounded to 4.20 K) did not find the 4.2 K entry")
+	}
+	if b := tr.bathAt(4.2); b.TemperatureK != 4.2 {
+		t.Errorf("4.2 K rounded to %v", b.TemperatureK)
+	}
+	if b := tr.bathAt(-1); b.TemperatureK != 0 {
+		t.Errorf("-1 K clamped to %v, want 0", b.TemperatureK)
+	}
+	tr.bath = phonon.Bath{}
+	if b := tr.bathAt(20); b != (phonon.Bath{}) {
+		t.Errorf("no phonons: bath %+v at 20 K, want the zero bath", b)
 	}
 }

@@ -11,6 +11,7 @@ import (
 
 	"github.com/gliss-lab/gliss/drivers"
 	"github.com/gliss-lab/gliss/sim/model"
+	"github.com/gliss-lab/gliss/sim/phonon"
 )
 
 // maxGate is the longest gate the simulated counter accepts (invented).
@@ -25,18 +26,21 @@ const maxGate = time.Hour
 // counter's own stream (one relative deviate of σ PowerNoiseRel, held for the
 // gate); the dot model is solved once at GDD = true stretcher(stage mm),
 // Θ = π·sqrt(P/P1) with P = true Malus(angle) × laser noise, and the laser's
-// detuning; the detection chain turns the yields into Poisson counts for the
-// gate. The gate takes gate/Speed of wall time (none when Instant); the
-// computation happens inside that time.
+// detuning, with the dot's phonons (Options.Bath) at the cryostat's
+// noise-free sample temperature at the gate's start, rounded to 0.01 K
+// (sim/phonon; without phonons the plain sim/model); the detection chain
+// turns the yields into Poisson counts for the gate. The gate takes
+// gate/Speed of wall time (none when Instant); the computation happens inside
+// that time.
 type Counter struct {
 	*base
 	busy atomic.Bool
 
 	solveMu sync.Mutex
-	solver  *model.Solver
+	solver  *phonon.Solver
 }
 
-func newCounter(b *base) *Counter { return &Counter{base: b, solver: model.NewSolver()} }
+func newCounter(b *base) *Counter { return &Counter{base: b, solver: phonon.NewSolver()} }
 
 // Channels are "x" (exciton line) and "xx" (biexciton line), the order of Count.
 func (c *Counter) Channels() []string { return []string{"x", "xx"} }
@@ -87,7 +91,7 @@ func (c *Counter) draw(sn snapshot, gate time.Duration) ([]uint64, error) {
 	if err != nil {
 		return nil, err
 	}
-	y, err := c.yields(p)
+	y, err := c.yields(p, t.bathAt(sn.sampleK))
 	if err != nil {
 		return nil, err
 	}
@@ -108,43 +112,52 @@ func (t truth) pointAt(sn snapshot, noise float64) (model.Params, error) {
 	return p, nil
 }
 
-// yields are the model's photon yields per pulse (n_x, n_xx) at p, from the
-// bench's cache or one solve.
-func (c *Counter) yields(p model.Params) ([2]float64, error) {
-	if y, ok := c.st.yields.get(p); ok {
+// yields are the model's photon yields per pulse (n_x, n_xx) at p with the
+// phonon bath b (the zero Bath: none), from the bench's cache or one solve.
+func (c *Counter) yields(p model.Params, b phonon.Bath) ([2]float64, error) {
+	key := yieldKey{p, b}
+	if y, ok := c.st.yields.get(key); ok {
 		return y, nil
 	}
 	c.solveMu.Lock()
-	r, err := c.solver.Solve(p)
+	r, err := c.solver.Solve(p, &b)
 	c.solveMu.Unlock()
 	if err != nil {
-		return [2]float64{}, fmt.Errorf("dot model at GDD %.4f ps², area %.4fπ, detuning %.4f meV: %w", p.GDDPS2, p.AreaPi, p.DetuningMeV, err)
+		return [2]float64{}, fmt.Errorf("dot model at GDD %.4f ps², area %.4fπ, detuning %.4f meV, sample %.2f K: %w", p.GDDPS2, p.AreaPi, p.DetuningMeV, b.TemperatureK, err)
 	}
 	y := [2]float64{r.NX, r.NXX}
-	c.st.yields.put(p, y)
+	c.st.yields.put(key, y)
 	return y, nil
 }
 
+// yieldKey is what a yield depends on: the exact model parameters and the
+// phonon bath, whose temperature is the sample's rounded to 0.01 K
+// (quantiseK), so the key is exact too.
+type yieldKey struct {
+	p model.Params
+	b phonon.Bath
+}
+
 // yieldCache is a small least-recently-used map from exact model parameters
-// to yields. Entries are exact solutions, so hits and misses give the same
-// numbers: the cache changes speed, never results.
+// and bath to yields. Entries are exact solutions, so hits and misses give
+// the same numbers: the cache changes speed, never results.
 type yieldCache struct {
 	mu    sync.Mutex
 	cap   int
 	order *list.List // front: most recent; values *yieldEntry
-	byKey map[model.Params]*list.Element
+	byKey map[yieldKey]*list.Element
 }
 
 type yieldEntry struct {
-	key model.Params
+	key yieldKey
 	y   [2]float64
 }
 
 func newYieldCache(capacity int) *yieldCache {
-	return &yieldCache{cap: capacity, order: list.New(), byKey: make(map[model.Params]*list.Element, capacity)}
+	return &yieldCache{cap: capacity, order: list.New(), byKey: make(map[yieldKey]*list.Element, capacity)}
 }
 
-func (yc *yieldCache) get(p model.Params) ([2]float64, bool) {
+func (yc *yieldCache) get(p yieldKey) ([2]float64, bool) {
 	yc.mu.Lock()
 	defer yc.mu.Unlock()
 	if e, ok := yc.byKey[p]; ok {
@@ -154,7 +167,7 @@ func (yc *yieldCache) get(p model.Params) ([2]float64, bool) {
 	return [2]float64{}, false
 }
 
-func (yc *yieldCache) put(p model.Params, y [2]float64) {
+func (yc *yieldCache) put(p yieldKey, y [2]float64) {
 	yc.mu.Lock()
 	defer yc.mu.Unlock()
 	if e, ok := yc.byKey[p]; ok {

@@ -1,7 +1,8 @@
 // Package bench is gliss's built-in simulated bench: a grating stage, a
-// half-wave-plate attenuator, a power meter, a tunable laser and a
-// two-channel photon counter behind the role interfaces of package drivers,
-// all sharing one optical state. glissd runs on it when no bench file is
+// half-wave-plate attenuator, a power meter, a tunable laser, a two-channel
+// photon counter and the cryostat's temperature controller (the thermometer
+// role, sim/cryostat) behind the role interfaces of package drivers, all
+// sharing one optical state and one sample. glissd runs on it when no bench file is
 // given; a bench file may also name driver "sim" for any role (SimSettings).
 //
 // The instruments behave like physical ones:
@@ -19,9 +20,20 @@
 //     instant), takes GDD from the true stretcher at the stage position, the
 //     power from the true Malus law at the plate angle times the laser's
 //     power noise for that gate, Θ = π·sqrt(P/P1), the laser's detuning, and
-//     solves the dot model (sim/model) once; the detection chain
-//     (sim/detection) turns the yields into Poisson counts. The truth
-//     (Options) may differ from the bench's nominal Calibration.
+//     solves the dot model once — with the dot's phonons (sim/phonon; by
+//     default the demo dot's, Options.Bath) at the cryostat's noise-free
+//     sample temperature at that instant rounded to 0.01 K, or the plain
+//     sim/model without phonons; the detection chain (sim/detection) turns
+//     the yields into Poisson counts. The truth (Options) may differ from the
+//     bench's nominal Calibration. A phonon point costs a few milliseconds of
+//     CPU (a plain one a fraction of that); a small cache keyed by the exact
+//     parameters and the rounded temperature serves repeated states.
+//   - Temperature takes time. The thermometer sets the cryostat's setpoint
+//     (1.5–300 K, demo); the sample follows to first order (τ 60 s) and the
+//     thermometer waits for stability (drivers.Stabilizer) in instrument
+//     time. On an Instant bench the cryostat's clock advances only by its
+//     own calls, so a 30-minute wait costs microseconds and stays
+//     deterministic.
 //   - Time is scaled by Options.Speed (moves, readings, gates, relocks and
 //     fault delays take their instrument time / Speed of wall time), or
 //     skipped entirely with Options.Instant.
@@ -30,11 +42,13 @@
 //     move that stalls partway (ErrStalled).
 //
 // Determinism: each instrument draws from its own PCG stream seeded from
-// Options.Seed and its bench name, so the same seed and the same command
-// sequence per instrument give the same numbers bit for bit, at any Speed
-// and however the engine interleaves instruments in goroutines. (A gate
-// opened while an axis is still moving depends on timing, as it would on a
-// real bench.) The laser's power noise is drawn by the instruments that see
+// Options.Seed and its bench name (the cryostat from Options.Seed), so the
+// same seed and the same command sequence per instrument give the same
+// numbers bit for bit, at any Speed and however the engine interleaves
+// instruments in goroutines. (A gate opened while an axis is still moving,
+// or while the sample is still warming, depends on timing, as it would on a
+// real bench; a settled sample is within the 0.01 K rounding of its
+// setpoint.) The laser's power noise is drawn by the instruments that see
 // the light — the counter once per gate, the power meter once per reading —
 // each from its own stream.
 //

@@ -11,7 +11,7 @@ import (
 // DriverName is the name of the simulated driver in the drivers registry.
 const DriverName = "sim"
 
-var simRoles = []drivers.Role{drivers.RoleStage, drivers.RoleAttenuator, drivers.RolePowerMeter, drivers.RoleLaser, drivers.RoleCounter}
+var simRoles = []drivers.Role{drivers.RoleStage, drivers.RoleAttenuator, drivers.RolePowerMeter, drivers.RoleLaser, drivers.RoleCounter, drivers.RoleThermometer}
 
 func init() { drivers.Register(DriverName, simDriver{}) }
 
@@ -24,8 +24,10 @@ func init() { drivers.Register(DriverName, simDriver{}) }
 // is the demo dot, chain, stretcher and attenuator (Options zero values);
 // a scan that needs other truths uses New directly.
 //
-// One state has at most one stage, one attenuator and one laser; power
-// meters and counters may be several.
+// One state has at most one stage, one attenuator, one laser and one
+// thermometer (the sample's cryostat, demo options, sample at 4.2 K until a
+// thermometer sets another temperature); power meters and counters may be
+// several. The counter sees the demo dot's phonons at the sample temperature.
 type SimSettings struct {
 	// Bench is the id of the shared optical state ("" means "sim").
 	Bench string `yaml:"bench" json:"bench"`

@@ -17,7 +17,7 @@ import (
 // own name and random stream, and a closed flag.
 type base struct {
 	st    *state
-	kind  string // role word: "stage", "attenuator", "powermeter", "counter", "laser"
+	kind  string // role word: "stage", "attenuator", "powermeter", "counter", "laser", "thermometer"
 	name  string // bench name of the instrument
 	moves bool   // the instrument moves an axis (stuck faults apply)
 
@@ -29,7 +29,14 @@ type base struct {
 }
 
 func newBase(st *state, kind, name string, moves bool) (*base, error) {
-	if err := st.claim(name, kind, moves); err != nil {
+	return newBaseOwning(st, kind, name, moves, moves)
+}
+
+// newBaseOwning is newBase for an instrument that owns a part of the state
+// (sole: one per state) without moving an axis, like the thermometer, which
+// controls the one sample's temperature.
+func newBaseOwning(st *state, kind, name string, moves, sole bool) (*base, error) {
+	if err := st.claim(name, kind, sole); err != nil {
 		return nil, err
 	}
 	b := &base{st: st, kind: kind, name: name, moves: moves, rng: rngFor(st.seed, name)}

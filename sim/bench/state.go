@@ -11,8 +11,10 @@ import (
 	"time"
 
 	"github.com/gliss-lab/gliss/drivers/calib"
+	"github.com/gliss-lab/gliss/sim/cryostat"
 	"github.com/gliss-lab/gliss/sim/detection"
 	"github.com/gliss-lab/gliss/sim/model"
+	"github.com/gliss-lab/gliss/sim/phonon"
 )
 
 // Demo instrument constants. The stage values come from the demo stretcher of
@@ -80,6 +82,20 @@ type Options struct {
 	// MeterNoiseRel is the power meter's relative reading noise σ
 	// (zero: 0.005; negative: no noise).
 	MeterNoiseRel float64
+	// Bath is the true phonon bath of the dot (sim/phonon). nil means the
+	// demo dot's phonons, phonon.DemoBath(); a bath with AlphaPS2 0 means no
+	// phonons (the counter then solves the plain dot model, bit for bit).
+	// Its TemperatureK is ignored: the phonons are at the sample temperature
+	// of the cryostat (Cryostat), rounded to 0.01 K.
+	Bath *phonon.Bath
+	// Cryostat configures the sample's cryostat (zero value:
+	// cryostat.Demo(), 1.5–300 K starting at 4.2 K, τ 60 s). Its Speed,
+	// Clock and Seed are the bench's: Speed is Options.Speed, the seed is
+	// derived from Options.Seed, and on an Instant bench its clock advances
+	// only by its own calls. The cryostat exists whether or not a
+	// thermometer instrument is opened on it: without one, the sample stays
+	// at InitialK.
+	Cryostat cryostat.Options
 	// Logger receives debug logs of moves and warnings of faults (nil: none).
 	Logger *slog.Logger
 }
@@ -93,6 +109,18 @@ type truth struct {
 	p1UW          float64
 	powerNoiseRel float64
 	meterNoiseRel float64
+	bath          phonon.Bath // AlphaPS2 0: no phonons
+}
+
+// bathAt is the phonon bath with the sample at k kelvin (rounded to
+// sampleQuantumK), or the zero Bath when the dot has no phonons.
+func (t truth) bathAt(k float64) phonon.Bath {
+	if t.bath.AlphaPS2 == 0 {
+		return phonon.Bath{}
+	}
+	b := t.bath
+	b.TemperatureK = quantiseK(k)
+	return b
 }
 
 func resolveNoise(field string, v, def float64) (float64, error) {
@@ -164,6 +192,18 @@ func (o Options) resolve() (truth, float64, error) {
 	if t.meterNoiseRel, err = resolveNoise("MeterNoiseRel", o.MeterNoiseRel, defaultMeterNoise); err != nil {
 		return truth{}, 0, err
 	}
+	switch {
+	case o.Bath == nil:
+		t.bath = phonon.DemoBath()
+	case o.Bath.AlphaPS2 == 0:
+		t.bath = phonon.Bath{}
+	default:
+		t.bath = *o.Bath
+		t.bath.TemperatureK = phonon.DemoBath().TemperatureK // set from the cryostat at every gate
+		if err := t.bath.Validate(); err != nil {
+			return truth{}, 0, fmt.Errorf("Options.Bath: %w", err)
+		}
+	}
 	if a := t.areaPi(t.malus.PMaxUW * (1 + 4*t.powerNoiseRel)); a > model.MaxAreaPi {
 		return truth{}, 0, fmt.Errorf("Options.CouplingUWPerPi2 %g µW: area %.3gπ at %g µW (+4σ laser noise), beyond the model's %gπ", t.p1UW, a, t.malus.PMaxUW, model.MaxAreaPi)
 	}
@@ -205,6 +245,10 @@ type state struct {
 	log     *slog.Logger
 	now     func() time.Time
 	yields  *yieldCache
+	// cryo is the sample's cryostat: the thermometer instrument controls it,
+	// the counter reads its noise-free sample temperature for the phonons.
+	// It has its own lock; st.mu is never held while calling it.
+	cryo *cryostat.Cryostat
 
 	mu       sync.Mutex
 	stage    axis              // mm
@@ -234,6 +278,12 @@ func newState(o Options) (*state, error) {
 		owners:   map[string]string{},
 		names:    map[string]bool{},
 		faults:   map[string]*Fault{},
+	}
+	if st.cryo, err = newCryostat(o.Cryostat, o.Seed, speed, o.Instant, st); err != nil {
+		return nil, err
+	}
+	if k := st.cryo.Options().MaxK; t.bath.AlphaPS2 != 0 && k > phonon.MaxTemperatureK {
+		return nil, fmt.Errorf("Options.Cryostat: MaxK %g K beyond the phonon model's %g K", k, phonon.MaxTemperatureK)
 	}
 	return st, nil
 }
@@ -304,9 +354,11 @@ func (st *state) sleepUntil(ctx context.Context, deadline time.Time) error {
 // power meter see it.
 type snapshot struct {
 	stageMM, angleDeg, detuningMeV float64
+	sampleK                        float64 // noise-free sample temperature
 }
 
 func (st *state) snap() snapshot {
+	k := st.cryo.SampleK() // outside st.mu: the cryostat has its own lock
 	st.mu.Lock()
 	defer st.mu.Unlock()
 	now := st.now()
@@ -314,6 +366,7 @@ func (st *state) snap() snapshot {
 		stageMM:     st.stage.at(now, st.speed),
 		angleDeg:    st.angle.at(now, st.speed),
 		detuningMeV: st.detuning.at(now, st.speed),
+		sampleK:     k,
 	}
 }
 
