@@ -124,7 +124,11 @@ type run struct {
 
 	pauseReq, cancelReq string // reasons; "" when not requested
 	pauseSet, cancelSet bool
-	resume              chan struct{} // closed-and-replaced on resume
+	// autoResume: paused for an unavailable instrument, which the runner
+	// probes; the scan resumes by itself when it answers. An operator's
+	// pause clears it.
+	autoResume bool
+	resume     chan struct{} // closed-and-replaced on resume
 
 	logs []*glissv1.LogLine
 }
@@ -365,6 +369,17 @@ func (e *Engine) Pause(ctx context.Context, id, reason string) (*glissv1.Scan, e
 			return nil, err
 		}
 	case glissv1.ScanState_SCAN_STATE_PAUSED:
+		if r.autoResume {
+			// The operator holds the scan: no automatic resume.
+			r.autoResume = false
+			r.rec.Reason += "; held by " + reason + ": no automatic resume"
+			r.version++
+			if err := e.store.PutScan(context.WithoutCancel(ctx), r.rec); err != nil {
+				return nil, fmt.Errorf("scan %s: record hold: %w", id, err)
+			}
+			e.appendLogLocked(r, "info", "automatic resume off: "+reason)
+			go e.notify(id)
+		}
 	default:
 		return nil, fmt.Errorf("scan %s is %s: only QUEUED or RUNNING scans can be paused: %w", id, short(r.rec.State), ErrState)
 	}

@@ -2,6 +2,7 @@ package engine
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"math"
 	"time"
@@ -99,7 +100,7 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 
 	last := plan.Target{} // what this run has commanded so far
 	if err := e.setFixed(ctx, r, &last); err != nil {
-		if !e.holdOnError(ctx, r, fmt.Sprintf("fixed settings: %v", err), &last) {
+		if !e.holdOnError(ctx, r, fmt.Sprintf("fixed settings: %v", err), err, &last) {
 			return
 		}
 	}
@@ -117,7 +118,7 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 		}
 		p, err := e.acquire(ctx, r, seq, &last)
 		if err != nil {
-			if !e.holdOnError(ctx, r, fmt.Sprintf("point %d: %v", seq, err), &last) {
+			if !e.holdOnError(ctx, r, fmt.Sprintf("point %d: %v", seq, err), err, &last) {
 				return
 			}
 			// Resumed: restart from the first point not stored.
@@ -126,7 +127,7 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 		}
 		// The point is stored even when the daemon is shutting down.
 		if err := e.store.AppendPoint(context.WithoutCancel(ctx), p, func(err error) { e.pointDurable(r, p, err) }); err != nil {
-			if !e.holdOnError(ctx, r, fmt.Sprintf("point %d: %v", seq, err), &last) {
+			if !e.holdOnError(ctx, r, fmt.Sprintf("point %d: %v", seq, err), err, &last) {
 				return
 			}
 			seq = e.waitStored(ctx, r)
@@ -146,7 +147,7 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 	}
 	if n := e.durableOrStored(r); n != r.plan.Points {
 		// A write failed after the last point was queued.
-		if !e.holdOnError(ctx, r, fmt.Sprintf("store has %d of %d points", n, r.plan.Points), &last) {
+		if !e.holdOnError(ctx, r, fmt.Sprintf("store has %d of %d points", n, r.plan.Points), nil, &last) {
 			return
 		}
 		e.runScanTail(ctx, r)
@@ -210,7 +211,7 @@ func (e *Engine) pointDurable(r *run, p *glissv1.Point, err error) {
 func (e *Engine) between(ctx context.Context, r *run, last *plan.Target) (stop, held bool) {
 	for {
 		if err := r.takeWriteErr(); err != nil {
-			if !e.hold(ctx, r, err.Error(), last) {
+			if !e.hold(ctx, r, err.Error(), nil, last) {
 				return true, held
 			}
 			held = true
@@ -231,7 +232,7 @@ func (e *Engine) between(ctx context.Context, r *run, last *plan.Target) (stop, 
 			reason := r.pauseReq
 			r.pauseSet = false
 			r.mu.Unlock()
-			if !e.hold(ctx, r, reason, last) {
+			if !e.hold(ctx, r, reason, nil, last) {
 				return true, held
 			}
 			held = true
@@ -243,31 +244,84 @@ func (e *Engine) between(ctx context.Context, r *run, last *plan.Target) (stop, 
 }
 
 // holdOnError pauses the scan with reason and waits; it returns false when
-// the scan must stop (cancelled or shutdown).
-func (e *Engine) holdOnError(ctx context.Context, r *run, reason string, last *plan.Target) bool {
+// the scan must stop (cancelled or shutdown). When cause is an instrument
+// that stays unavailable (drivers.ErrUnavailable past its driver's retry
+// budget), the instrument is probed with backoff while the scan is paused
+// and the scan resumes by itself when it answers again.
+func (e *Engine) holdOnError(ctx context.Context, r *run, reason string, cause error, last *plan.Target) bool {
 	e.log.Warn("scan paused on error", "scan", r.rec.Id, "reason", reason)
 	*last = plan.Target{} // instruments may be anywhere now: command everything again
-	if !e.hold(ctx, r, reason, last) {
+	var probe *drivers.Entry
+	var ie *instrumentError
+	if errors.As(cause, &ie) && errors.Is(cause, drivers.ErrUnavailable) {
+		probe = ie.entry
+		reason += fmt.Sprintf("; %s %q is probed and the scan resumes by itself when it answers (or: gliss scan resume)", ie.entry.Role, ie.entry.Name)
+	}
+	if !e.hold(ctx, r, reason, probe, last) {
 		return false
 	}
 	stop, _ := e.between(ctx, r, last)
 	return !stop
 }
 
+// Probe backoff while a scan waits for an unavailable instrument, in the
+// bench's time (divided by a simulated bench's time scale).
+const (
+	probeFirst = 500 * time.Millisecond
+	probeMax   = 30 * time.Second
+)
+
 // hold records PAUSED and waits for resume, cancel or shutdown. It returns
-// true on resume.
-func (e *Engine) hold(ctx context.Context, r *run, reason string, last *plan.Target) bool {
+// true on resume. With probe set (an unavailable instrument) it also probes
+// that instrument with backoff and resumes by itself once it answers,
+// unless an operator paused the scan meanwhile.
+func (e *Engine) hold(ctx context.Context, r *run, reason string, probe *drivers.Entry, last *plan.Target) bool {
 	r.mu.Lock()
 	if err := e.transitionLocked(ctx, r, glissv1.ScanState_SCAN_STATE_PAUSED, reason); err != nil {
 		e.log.Error("record pause", "scan", r.rec.Id, "err", err)
 	}
+	r.autoResume = probe != nil
 	resume := r.resume
 	r.mu.Unlock()
+	var probeC <-chan time.Time
+	wait := max(e.bench.Scale(probeFirst), time.Millisecond)
+	var timer *time.Timer
+	if probe != nil {
+		timer = time.NewTimer(wait)
+		defer timer.Stop()
+		probeC = timer.C
+	}
+	tries := 0
 	for {
 		select {
 		case <-ctx.Done():
 			e.endWith(ctx, r, glissv1.ScanState_SCAN_STATE_INTERRUPTED, "glissd shut down while the scan was paused ("+reason+")")
 			return false
+		case <-probeC:
+			tries++
+			perr := e.probe(ctx, probe)
+			r.mu.Lock()
+			switch {
+			case !r.autoResume || r.cancelSet || r.rec.State != glissv1.ScanState_SCAN_STATE_PAUSED:
+				// An operator took over: no more probing.
+				probeC = nil
+			case perr == nil:
+				r.pauseSet, r.pauseReq, r.autoResume = false, "", false
+				err := e.transitionLocked(ctx, r, glissv1.ScanState_SCAN_STATE_RUNNING,
+					fmt.Sprintf("%s %q answers again (probe %d): resumed automatically", probe.Role, probe.Name, tries))
+				r.mu.Unlock()
+				if err != nil {
+					e.log.Error("record resume", "scan", r.rec.Id, "err", err)
+				}
+				*last = plan.Target{}
+				return true
+			default:
+				e.log.Debug("instrument still unavailable", "scan", r.rec.Id, "instrument", probe.Name, "probe", tries, "err", perr)
+				wait = min(2*wait, max(e.bench.Scale(probeMax), time.Millisecond))
+				timer.Reset(wait)
+			}
+			r.mu.Unlock()
+			continue
 		case <-resume:
 		}
 		r.mu.Lock()
@@ -278,6 +332,7 @@ func (e *Engine) hold(ctx context.Context, r *run, reason string, last *plan.Tar
 			return false
 		}
 		if r.rec.State == glissv1.ScanState_SCAN_STATE_PAUSED && !r.pauseSet {
+			r.autoResume = false
 			err := e.transitionLocked(ctx, r, glissv1.ScanState_SCAN_STATE_RUNNING, "resumed")
 			r.mu.Unlock()
 			if err != nil {
@@ -289,6 +344,54 @@ func (e *Engine) hold(ctx context.Context, r *run, reason string, last *plan.Tar
 		resume = r.resume
 		r.mu.Unlock()
 	}
+}
+
+// probe asks an instrument whether it answers: its identity when it has
+// one, else a reading of its role. Nothing moves.
+func (e *Engine) probe(ctx context.Context, en *drivers.Entry) error {
+	pctx, cancel := context.WithTimeout(ctx, e.opts.PointTimeout)
+	defer cancel()
+	if id, ok := en.Inst.(drivers.Identifier); ok {
+		_, err := id.Identify(pctx)
+		return err
+	}
+	var err error
+	switch inst := en.Inst.(type) {
+	case drivers.Stage:
+		_, err = inst.PositionMM(pctx)
+	case drivers.Attenuator:
+		_, err = inst.AngleDeg(pctx)
+	case drivers.PowerMeter:
+		_, err = inst.PowerUW(pctx)
+	case drivers.Laser:
+		_, err = inst.DetuningMeV(pctx)
+	case drivers.Thermometer:
+		_, err = inst.TemperatureK(pctx)
+	case drivers.Counter:
+		_, err = inst.Count(pctx, time.Millisecond)
+	default:
+		err = fmt.Errorf("%s %q: no way to probe it", en.Role, en.Name)
+	}
+	return err
+}
+
+// instrumentError is an error of one instrument of the bench.
+type instrumentError struct {
+	entry *drivers.Entry
+	err   error
+}
+
+func (e *instrumentError) Error() string { return e.err.Error() }
+func (e *instrumentError) Unwrap() error { return e.err }
+
+func instErr(b *drivers.Bench, r drivers.Role, err error) error {
+	if err == nil {
+		return nil
+	}
+	if en := b.ByRole(r); en != nil {
+		return &instrumentError{entry: en, err: err}
+	}
+	return err
 }
 
 func (e *Engine) endWith(ctx context.Context, r *run, to glissv1.ScanState, reason string) {
@@ -327,7 +430,7 @@ func (e *Engine) command(ctx context.Context, pl *plan.Plan, t plan.Target, last
 		mm := *t.StageMM
 		g.Go(func() error {
 			if err := s.MoveToMM(gctx, mm); err != nil {
-				return fmt.Errorf("stage %q: move to %.3f mm: %w", b.ByRole(drivers.RoleStage).Name, mm, err)
+				return instErr(b, drivers.RoleStage, fmt.Errorf("stage %q: move to %.3f mm: %w", b.ByRole(drivers.RoleStage).Name, mm, err))
 			}
 			return nil
 		})
@@ -337,7 +440,7 @@ func (e *Engine) command(ctx context.Context, pl *plan.Plan, t plan.Target, last
 		deg := *t.AngleDeg
 		g.Go(func() error {
 			if err := a.SetAngleDeg(gctx, deg); err != nil {
-				return fmt.Errorf("attenuator %q: rotate to %.3f°: %w", b.ByRole(drivers.RoleAttenuator).Name, deg, err)
+				return instErr(b, drivers.RoleAttenuator, fmt.Errorf("attenuator %q: rotate to %.3f°: %w", b.ByRole(drivers.RoleAttenuator).Name, deg, err))
 			}
 			return nil
 		})
@@ -347,7 +450,7 @@ func (e *Engine) command(ctx context.Context, pl *plan.Plan, t plan.Target, last
 		mev := *t.DetuningMeV
 		g.Go(func() error {
 			if err := l.SetDetuningMeV(gctx, mev); err != nil {
-				return fmt.Errorf("laser %q: detune to %.4f meV: %w", b.ByRole(drivers.RoleLaser).Name, mev, err)
+				return instErr(b, drivers.RoleLaser, fmt.Errorf("laser %q: detune to %.4f meV: %w", b.ByRole(drivers.RoleLaser).Name, mev, err))
 			}
 			return nil
 		})
@@ -358,11 +461,11 @@ func (e *Engine) command(ctx context.Context, pl *plan.Plan, t plan.Target, last
 		name := b.ByRole(drivers.RoleThermometer).Name
 		g.Go(func() error {
 			if err := th.SetSetpointK(gctx, k); err != nil {
-				return fmt.Errorf("thermometer %q: setpoint %.3f K: %w", name, k, err)
+				return instErr(b, drivers.RoleThermometer, fmt.Errorf("thermometer %q: setpoint %.3f K: %w", name, k, err))
 			}
 			if st, ok := th.(drivers.Stabilizer); ok && pl != nil {
 				if err := st.WaitStableK(gctx, k, pl.TempToleranceK, pl.TempHold, pl.TempTimeout); err != nil {
-					return fmt.Errorf("thermometer %q: %w", name, err)
+					return instErr(b, drivers.RoleThermometer, fmt.Errorf("thermometer %q: %w", name, err))
 				}
 			}
 			return nil
@@ -410,7 +513,7 @@ func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *plan.Tar
 	if pm := e.bench.PowerMeter(); pm != nil {
 		uw, err := pm.PowerUW(pctx)
 		if err != nil {
-			return nil, fmt.Errorf("power meter %q: read: %w", e.bench.ByRole(drivers.RolePowerMeter).Name, err)
+			return nil, instErr(e.bench, drivers.RolePowerMeter, fmt.Errorf("power meter %q: read: %w", e.bench.ByRole(drivers.RolePowerMeter).Name, err))
 		}
 		if math.IsNaN(uw) || math.IsInf(uw, 0) {
 			return nil, fmt.Errorf("power meter %q: reading %v is not a number", e.bench.ByRole(drivers.RolePowerMeter).Name, uw)
@@ -420,14 +523,14 @@ func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *plan.Tar
 	if th := e.bench.Thermometer(); th != nil {
 		k, err := th.TemperatureK(pctx)
 		if err != nil {
-			return nil, fmt.Errorf("thermometer %q: read: %w", e.bench.ByRole(drivers.RoleThermometer).Name, err)
+			return nil, instErr(e.bench, drivers.RoleThermometer, fmt.Errorf("thermometer %q: read: %w", e.bench.ByRole(drivers.RoleThermometer).Name, err))
 		}
 		p.TemperatureK = &k
 	}
 	c := e.bench.Counter()
 	counts, err := c.Count(pctx, r.plan.Gate)
 	if err != nil {
-		return nil, fmt.Errorf("counter %q: gate %v: %w", e.bench.ByRole(drivers.RoleCounter).Name, r.plan.Gate, err)
+		return nil, instErr(e.bench, drivers.RoleCounter, fmt.Errorf("counter %q: gate %v: %w", e.bench.ByRole(drivers.RoleCounter).Name, r.plan.Gate, err))
 	}
 	if want := len(c.Channels()); len(counts) != want {
 		return nil, fmt.Errorf("counter %q: %d channels returned, %d expected", e.bench.ByRole(drivers.RoleCounter).Name, len(counts), want)
