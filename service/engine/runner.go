@@ -13,6 +13,7 @@ import (
 
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
 	"github.com/gliss-lab/gliss/drivers"
+	"github.com/gliss-lab/gliss/drivers/calib"
 	"github.com/gliss-lab/gliss/service/plan"
 )
 
@@ -567,21 +568,36 @@ func (e *Engine) interlockAfter(ctx context.Context, r *run, p *glissv1.Point) s
 	}
 	e.log.Warn("interlock tripped", "scan", r.rec.Id, "reason", reason)
 	if a := e.bench.Attenuator(); a != nil {
-		m := e.bench.Calibration.Attenuator
-		deg, err := m.AngleDeg(m.PMinUW)
-		if err == nil {
-			actx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout)
-			err = a.SetAngleDeg(actx, deg)
-			cancel()
-		}
+		deg := minPowerAngleDeg(e.bench.Calibration.Attenuator, e.bench.ByRole(drivers.RoleAttenuator).Limits)
+		actx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout)
+		err := a.SetAngleDeg(actx, deg)
+		cancel()
 		if err != nil {
-			reason += fmt.Sprintf("; setting the attenuator to its minimum failed: %v", err)
+			reason += fmt.Sprintf("; setting the attenuator to its minimum (%.3f°) failed: %v", deg, err)
 		} else {
-			reason += "; attenuator set to its minimum"
+			reason += fmt.Sprintf("; attenuator set to its minimum (%.3f°)", deg)
 		}
 	}
 	e.logf(r, "error", "%s", reason)
 	return reason
+}
+
+// minPowerAngleDeg is the attenuator angle of least power, through the
+// calibration, within the attenuator's angle limits: an extinction angle
+// θ0 + 45° + k·90° inside them, else the limit of lower power.
+func minPowerAngleDeg(m calib.Malus, l drivers.Limits) float64 {
+	lo, hi := l.AngleMinDeg, l.AngleMaxDeg
+	if !(hi > lo) { // no limits configured
+		return m.Theta0Deg + 45
+	}
+	k := math.Ceil((lo - m.Theta0Deg - 45) / 90)
+	if deg := m.Theta0Deg + 45 + 90*k; deg >= lo && deg <= hi {
+		return deg
+	}
+	if m.PowerUW(lo) <= m.PowerUW(hi) {
+		return lo
+	}
+	return hi
 }
 
 func sleep(ctx context.Context, d time.Duration) error {
