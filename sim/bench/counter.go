@@ -27,8 +27,9 @@ const maxGate = time.Hour
 // gate); the dot model is solved once at GDD = true stretcher(stage mm),
 // Θ = π·sqrt(P/P1) with P = true Malus(angle) × laser noise, and the laser's
 // detuning, with the dot's phonons (Options.Bath) at the cryostat's
-// noise-free sample temperature at the gate's start, rounded to 0.01 K
-// (sim/phonon; without phonons the plain sim/model); the detection chain
+// noise-free sample temperature at the gate's start, rounded to 0.01 K, or
+// at the setpoint after a successful stability wait (sim/phonon; without
+// phonons the plain sim/model); the detection chain
 // turns the yields into Poisson counts for the gate. The gate takes
 // gate/Speed of wall time (none when Instant); the computation happens inside
 // that time.

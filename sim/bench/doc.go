@@ -22,8 +22,9 @@
 //     power noise for that gate, Θ = π·sqrt(P/P1), the laser's detuning, and
 //     solves the dot model once — with the dot's phonons (sim/phonon; by
 //     default the demo dot's, Options.Bath) at the cryostat's noise-free
-//     sample temperature at that instant rounded to 0.01 K, or the plain
-//     sim/model without phonons; the detection chain (sim/detection) turns
+//     sample temperature at that instant rounded to 0.01 K (at the setpoint
+//     once a stability wait has succeeded), or the plain sim/model without
+//     phonons; the detection chain (sim/detection) turns
 //     the yields into Poisson counts. The truth (Options) may differ from the
 //     bench's nominal Calibration. A phonon point costs a few milliseconds of
 //     CPU (a plain one a fraction of that); a small cache keyed by the exact
@@ -47,8 +48,8 @@
 // numbers bit for bit, at any Speed and however the engine interleaves
 // instruments in goroutines. (A gate opened while an axis is still moving,
 // or while the sample is still warming, depends on timing, as it would on a
-// real bench; a settled sample is within the 0.01 K rounding of its
-// setpoint.) The laser's power noise is drawn by the instruments that see
+// real bench; after a successful stability wait the phonons are taken at
+// the setpoint, so settled points do not.) The laser's power noise is drawn by the instruments that see
 // the light — the counter once per gate, the power meter once per reading —
 // each from its own stream.
 //

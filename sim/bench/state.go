@@ -257,6 +257,11 @@ type state struct {
 	owners   map[string]string // role "stage"/"attenuator"/"laser" → instrument name
 	names    map[string]bool   // instrument names in use
 	faults   map[string]*Fault // instrument name → armed fault
+	// settled: the last stability wait succeeded at settledK and the
+	// setpoint has not changed since; the counter's phonons are then at
+	// settledK (see Thermometer.WaitStableK).
+	settled  bool
+	settledK float64
 }
 
 func newState(o Options) (*state, error) {
@@ -354,13 +359,18 @@ func (st *state) sleepUntil(ctx context.Context, deadline time.Time) error {
 // power meter see it.
 type snapshot struct {
 	stageMM, angleDeg, detuningMeV float64
-	sampleK                        float64 // noise-free sample temperature
+	// sampleK is the sample temperature the phonons see: the setpoint of
+	// a settled sample, else the cryostat's noise-free sample temperature.
+	sampleK float64
 }
 
 func (st *state) snap() snapshot {
 	k := st.cryo.SampleK() // outside st.mu: the cryostat has its own lock
 	st.mu.Lock()
 	defer st.mu.Unlock()
+	if st.settled {
+		k = st.settledK
+	}
 	now := st.now()
 	return snapshot{
 		stageMM:     st.stage.at(now, st.speed),
