@@ -248,3 +248,35 @@ func FuzzReadHeader(f *testing.F) {
 		Read(bytes.NewReader(b))
 	})
 }
+
+// BenchmarkWriteFloat64 writes a 201 × 201 map of counts (one channel of
+// a large power × chirp map) to memory.
+func BenchmarkWriteFloat64(b *testing.B) {
+	data := make([]float64, 201*201)
+	for i := range data {
+		data[i] = float64(i % 997)
+	}
+	var buf bytes.Buffer
+	b.SetBytes(int64(8 * len(data)))
+	b.ReportAllocs()
+	for b.Loop() {
+		buf.Reset()
+		if err := WriteFloat64(&buf, []int{201, 201}, data); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+func BenchmarkRead(b *testing.B) {
+	data := make([]float64, 201*201)
+	var buf bytes.Buffer
+	WriteFloat64(&buf, []int{201, 201}, data)
+	raw := buf.Bytes()
+	b.SetBytes(int64(len(raw)))
+	b.ReportAllocs()
+	for b.Loop() {
+		if _, err := Read(bytes.NewReader(raw)); err != nil {
+			b.Fatal(err)
+		}
+	}
+}

@@ -164,3 +164,24 @@ func TestLine(t *testing.T) {
 		t.Error("all-NaN series accepted")
 	}
 }
+
+// BenchmarkHeatMap draws a 101 × 101 map (a large measured map) as PNG.
+func BenchmarkHeatMap(b *testing.B) {
+	const n = 101
+	xs, ys, z := make([]float64, n), make([]float64, n), make([]float64, n*n)
+	for i := range n {
+		xs[i], ys[i] = float64(i)-50, float64(i*i)/100
+	}
+	for i := range z {
+		z[i] = math.Sin(float64(i) / 37)
+	}
+	var buf bytes.Buffer
+	b.ReportAllocs()
+	for b.Loop() {
+		buf.Reset()
+		if err := HeatMap(&buf, xs, ys, z, Options{Title: "bench", XLabel: "GDD (ps²)", YLabel: "power (µW)"}); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(buf.Len())/1024, "KiB/png")
+}
