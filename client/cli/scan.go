@@ -359,7 +359,7 @@ func reorder(args []string) []string {
 // needsValue lists the flags of ID-taking commands that take a value.
 func needsValue(flagArg string) bool {
 	switch strings.TrimLeft(flagArg, "-") {
-	case "server", "from", "reason", "format", "o", "state", "name", "limit", "channel", "at", "width-cm", "height-cm":
+	case "server", "token-file", "ca-cert", "from", "reason", "format", "o", "state", "name", "limit", "channel", "at", "width-cm", "height-cm":
 		return true
 	}
 	return false
