@@ -173,3 +173,10 @@ func TestScanPlotAndExportHelp(t *testing.T) {
 		t.Errorf("npy to stdout: %v", err)
 	}
 }
+
+func TestReorderConnectionFlags(t *testing.T) {
+	got := strings.Join(reorder([]string{"ID", "--token-file", "tok", "--ca-cert", "ca.pem", "-o", "m.png", "--at", "2"}), " ")
+	if want := "--token-file tok --ca-cert ca.pem -o m.png --at 2 ID"; got != want {
+		t.Errorf("reorder: %q, want %q", got, want)
+	}
+}
