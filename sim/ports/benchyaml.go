@@ -45,6 +45,8 @@ instruments:
 				l.DetuningMinMeV, l.DetuningMaxMeV, l.DetuningSpeedMeVPerS*speedOf(s))
 		case drivers.RolePowerMeter:
 			fmt.Fprintf(&b, "    limits: {max_power_uw: %g}\n", l.PowerMaxUW)
+		case drivers.RoleThermometer:
+			fmt.Fprintf(&b, "    limits: {min_k: %g, max_k: %g}\n", l.TemperatureMinK, l.TemperatureMaxK)
 		case drivers.RoleCounter:
 			var rates []string
 			for _, ch := range sortedKeys(l.CountRateMaxHz) {
@@ -63,6 +65,8 @@ instruments:
 			b.WriteString(motionCommands("TUNE", "DET", 0.005))
 		case drivers.RolePowerMeter:
 			b.WriteString("      commands:\n        read: {send: 'PWR?', pattern: '^PWR (?P<value>\\S+) (?P<unit>\\S+)$', unit: uW}\n")
+		case drivers.RoleThermometer:
+			b.WriteString("      commands:\n        read: {send: 'TEMP?', pattern: '^TEMP (?P<value>\\S+) K$', unit: K}\n        setpoint: 'SETK {value:%.4f}'\n")
 		case drivers.RoleCounter:
 			chs := []string{"x", "xx"}
 			if c, ok := e.Inst.(drivers.Counter); ok {

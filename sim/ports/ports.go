@@ -453,6 +453,28 @@ func (p *port) handle(ctx context.Context, cmd string) (string, bool) {
 			}
 			return "PWR " + strconv.FormatFloat(v, 'g', 9, 64) + " uW", true
 		}
+	case drivers.RoleThermometer:
+		th := e.Inst.(drivers.Thermometer)
+		switch word {
+		case "TEMP?":
+			v, err := th.TemperatureK(ctx)
+			if err != nil {
+				return "ERR 5 " + oneLine(err), true
+			}
+			return "TEMP " + strconv.FormatFloat(v, 'f', 4, 64) + " K", true
+		case "SETK":
+			k, err := strconv.ParseFloat(arg, 64)
+			if err != nil || k != k {
+				return errNumber, true
+			}
+			if k < e.Limits.TemperatureMinK || k > e.Limits.TemperatureMaxK {
+				return errRange, true
+			}
+			if err := th.SetSetpointK(ctx, k); err != nil {
+				return "ERR 5 " + oneLine(err), true
+			}
+			return "OK", true
+		}
 	case drivers.RoleCounter:
 		c := e.Inst.(drivers.Counter)
 		switch word {
