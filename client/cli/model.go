@@ -17,6 +17,7 @@ import (
 	"time"
 
 	"github.com/gliss-lab/gliss/sim/model"
+	"github.com/gliss-lab/gliss/sim/phonon"
 )
 
 // The model commands run the dot model of sim/model in this process: no
@@ -73,6 +74,42 @@ func (b *boundedFloat) Set(s string) error {
 // PHYSICS.md, except the lifetimes: absent means no decay.
 type physicsFlags struct {
 	p model.Params
+	// Phonons (PHYSICS.md §7): only with --temperature-k.
+	temperatureK float64
+	withPhonons  bool
+	bath         phonon.Bath
+}
+
+// phononBath is the bath of the flags, or nil without --temperature-k.
+func (pf *physicsFlags) phononBath() *phonon.Bath {
+	if !pf.withPhonons {
+		return nil
+	}
+	b := pf.bath
+	b.TemperatureK = pf.temperatureK
+	return &b
+}
+
+// setFlag records that a flag was given.
+type setFlag struct {
+	boundedFloat
+	set *bool
+}
+
+// String is empty until the flag is set: absent means "no phonons", not 0 K.
+func (f *setFlag) String() string {
+	if f == nil || f.set == nil || !*f.set {
+		return ""
+	}
+	return f.boundedFloat.String()
+}
+
+func (f *setFlag) Set(s string) error {
+	if err := f.boundedFloat.Set(s); err != nil {
+		return err
+	}
+	*f.set = true
+	return nil
 }
 
 var (
@@ -102,6 +139,15 @@ func addPhysics(fs *flag.FlagSet, withAxes bool) *physicsFlags {
 	fs.Var(&boundedFloat{&pf.p.XXLifetimePS, 0, model.MaxLifetimePS, rngLifetime}, "xx-lifetime-ps",
 		fmt.Sprintf("biexciton lifetime, `ps`; 0 or absent: no decay; the demo dot has %g (allowed %s)", demo.XXLifetimePS, rngLifetime))
 	fs.Var(&boundedFloat{&pf.p.Tolerance, 0, model.MaxTolerance, rngTol}, "tolerance", "relative and absolute solver `tolerance` (allowed "+rngTol+")")
+	db := phonon.DemoBath()
+	pf.bath = db
+	rngT := fmt.Sprintf("0 to %g K", phonon.MaxTemperatureK)
+	rngA := fmt.Sprintf("0 to %g ps²", phonon.MaxAlphaPS2)
+	rngC := fmt.Sprintf("%g to %g meV", phonon.MinCutoffMeV, phonon.MaxCutoffMeV)
+	fs.Var(&setFlag{boundedFloat{&pf.temperatureK, 0, phonon.MaxTemperatureK, rngT}, &pf.withPhonons}, "temperature-k",
+		fmt.Sprintf("sample temperature, `K`: turns on the LA-phonon bath (weak coupling); absent: no phonons; the demo sample is at %g K (allowed %s)", db.TemperatureK, rngT))
+	fs.Var(&boundedFloat{&pf.bath.AlphaPS2, 0, phonon.MaxAlphaPS2, rngA}, "phonon-alpha-ps2", "phonon coupling α of J(ω) = α·ω³·exp(−ω²/ωc²), `ps²` (allowed "+rngA+")")
+	fs.Var(&boundedFloat{&pf.bath.CutoffMeV, phonon.MinCutoffMeV, phonon.MaxCutoffMeV, rngC}, "phonon-cutoff-mev", "phonon cutoff ħωc, `meV` (allowed "+rngC+")")
 	return pf
 }
 
@@ -149,7 +195,7 @@ func runModelPoint(ctx context.Context, env *Env, args []string) error {
 	if err := ctx.Err(); err != nil {
 		return err
 	}
-	r, err := model.Solve(pf.p)
+	r, err := phonon.Solve(pf.p, pf.phononBath())
 	if err != nil {
 		return fmt.Errorf("gliss model point: %w", err)
 	}
@@ -257,7 +303,7 @@ func runModelMap(ctx context.Context, env *Env, args []string) error {
 		lastShown, shown = now, true
 		fmt.Fprintf(env.Stderr, "%s: %d of %d points (%.0f%%), %.1f s\n", cmd, done, total, 100*float64(done)/float64(total), now.Sub(start).Seconds())
 	}
-	pts, err := model.Map(ctx, pf.p, gdd, second, values, progress)
+	pts, err := phonon.Map(ctx, pf.p, pf.phononBath(), gdd, second, values, progress)
 	if err != nil {
 		return fmt.Errorf("%s: %w", cmd, err)
 	}
