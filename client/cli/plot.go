@@ -133,8 +133,21 @@ func ScanFigure(sc *glissv1.Scan, g *client.Grid, channel string, at int) (*Figu
 	}
 	gate := fmt.Sprintf("counts per %g ms gate", sc.GetSpec().GetGateMs())
 	f := &Figure{X: g.AxisValues[0], Options: plot.Options{XLabel: AxisLabel(axes[0].GetKind())}}
+	title := fmt.Sprintf("%s  (%s)", name, stateName(sc.State))
+	// Two axes, one of them a single value: a line over the other
+	// (the flat index is then the index along that axis).
+	if len(axes) == 2 && (g.Shape[0] == 1 || g.Shape[1] == 1) {
+		k, one := 0, 1
+		if g.Shape[0] == 1 {
+			k, one = 1, 0
+		}
+		f.X = g.AxisValues[k]
+		f.Options.XLabel = AxisLabel(axes[k].GetKind())
+		title += fmt.Sprintf(", %s = %g", client.AxisColumn(axes[one].GetKind()), g.AxisValues[one][0])
+		axes = axes[k : k+1]
+	}
 	if len(axes) == 1 {
-		f.Options.Title = fmt.Sprintf("%s  (%s)", name, stateName(sc.State))
+		f.Options.Title = title
 		f.Options.YLabel = gate
 		for _, ci := range chans {
 			f.Series = append(f.Series, plot.Series{Name: g.Channels[ci], Y: g.Counts[ci]})
@@ -147,7 +160,7 @@ func ScanFigure(sc *glissv1.Scan, g *client.Grid, channel string, at int) (*Figu
 	ci := chans[0]
 	n0, n1 := g.Shape[0], g.Shape[1]
 	z := g.Counts[ci]
-	title := fmt.Sprintf("%s counts: %s  (%s)", strings.ToUpper(g.Channels[ci]), name, stateName(sc.State))
+	title = strings.ToUpper(g.Channels[ci]) + " counts: " + title
 	if len(axes) == 3 {
 		n2 := g.Shape[2]
 		if at < 0 || at >= n2 {

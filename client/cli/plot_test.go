@@ -139,6 +139,24 @@ func TestScanPlotExportNPYAndWatch(t *testing.T) {
 	if _, _, err := cliRun(t, ctx, "scan", "plot", id, "-o", linePNG, "--channel", "all", "--server", addr); err == nil || ExitCode(err) != 2 {
 		t.Errorf("heat map with --channel all: %v", err)
 	}
+
+	// A map with one GDD value is drawn as a line over power.
+	id3, stderr, err := cliRun(t, ctx, "scan", "map", "--server", addr, "--gdd-ps2", "10", "--power-uw", "0.05:64:21", "--spacing", "amplitude", "--gate-ms", "100", "--watch")
+	if err != nil {
+		t.Fatalf("scan map (one GDD): %v\n%s", err, stderr)
+	}
+	sc3, err := cl.Get(ctx, strings.TrimSpace(id3))
+	if err != nil {
+		t.Fatal(err)
+	}
+	g3, err := client.NewGrid(sc3, cl.Points(ctx, sc3.Id, 0))
+	if err != nil {
+		t.Fatal(err)
+	}
+	fig, err := ScanFigure(sc3, g3, "all", 0)
+	if err != nil || len(fig.Series) != 2 || len(fig.X) != 21 || fig.Options.XLabel != "power on the sample (µW)" || !strings.Contains(fig.Options.Title, "gdd_ps2 = 10") {
+		t.Errorf("one-GDD map figure: %+v, %v", fig, err)
+	}
 }
 
 func checkPNG(t *testing.T, path string, w, h int) {
