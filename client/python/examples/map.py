@@ -1,6 +1,7 @@
 #!/usr/bin/python3
 """Submit a power x chirp map to glissd, show progress, save the counts as NumPy arrays."""
 import argparse, os, sys
+sys.dont_write_bytecode = True  # keep the checkout free of __pycache__
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 import grpc, numpy as np
 from gliss.v1 import scan_pb2 as pb, scan_pb2_grpc
