@@ -37,6 +37,14 @@ func needPython(t *testing.T) {
 }
 
 func TestMapExample(t *testing.T) {
+	src, err := os.ReadFile("examples/map.py")
+	if err != nil {
+		t.Fatal(err)
+	}
+	// The issue asks for an example of at most 40 lines.
+	if n := strings.Count(string(src), "\n"); n > 40 {
+		t.Errorf("examples/map.py has %d lines, at most 40 allowed", n)
+	}
 	needPython(t)
 	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
 	defer cancel()
