@@ -15,6 +15,7 @@ import (
 	"github.com/gliss-lab/gliss/service/daemon"
 	"github.com/gliss-lab/gliss/sim/detection"
 	"github.com/gliss-lab/gliss/sim/model"
+	"github.com/gliss-lab/gliss/sim/phonon"
 )
 
 // startDaemon runs glissd in process on a real loopback TCP listener.
@@ -84,7 +85,9 @@ func TestMapEndToEnd(t *testing.T) {
 	defer cancel()
 
 	gdd := []float64{0, 20}
-	power := []float64{1, 4, 9, 16} // µW: areas π, 2π, 3π, 4π for the demo coupling Θ = π·sqrt(P/1 µW)
+	// µW: areas π, 3.55π (the first maximum of the zero-chirp XX Rabi curve),
+	// 8π and 10π (on the adiabatic plateau at 20 ps²) for the demo coupling Θ = π·sqrt(P/1 µW).
+	power := []float64{1, 12.6, 64, 100}
 	spec := client.MapSpec(client.List(gdd...), client.List(power...), client.Options{Name: "e2e map", GateMS: 1000, Snake: true})
 	sc, err := c.Submit(ctx, spec)
 	if err != nil {
@@ -125,17 +128,22 @@ func TestMapEndToEnd(t *testing.T) {
 	}
 
 	// XX counts against the physics core's yields × the detection chain, at
-	// points where power noise does not matter to first order: the zero-chirp
-	// π pulse (a maximum of the Rabi curve) and the chirped plateau at 3π and 4π.
+	// points where power noise does not matter to first order: the first
+	// maximum of the zero-chirp Rabi curve and the chirped plateau at 8π and
+	// 10π. The simulated dot has the demo phonons at the cryostat's 4.2 K.
 	chain := detection.Demo()
+	bath := phonon.DemoBath()
 	for _, p := range w.points {
 		g, pw := p.Values[0], p.Values[1]
-		if !(g == 0 && pw == 1) && !(g == 20 && pw >= 9) {
+		if !(g == 0 && pw == 12.6) && !(g == 20 && pw >= 64) {
 			continue
+		}
+		if p.TemperatureK == nil || math.Abs(*p.TemperatureK-4.2) > 0.1 {
+			t.Errorf("point %d: temperature %v, want 4.2 K", p.Seq, p.TemperatureK)
 		}
 		mp := model.DemoParams()
 		mp.GDDPS2, mp.AreaPi = g, math.Sqrt(pw/1.0)
-		res, err := model.Solve(mp)
+		res, err := phonon.Solve(mp, &bath)
 		if err != nil {
 			t.Fatal(err)
 		}
