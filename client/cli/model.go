@@ -16,6 +16,7 @@ import (
 	"strings"
 	"time"
 
+	"github.com/gliss-lab/gliss/client/plot"
 	"github.com/gliss-lab/gliss/sim/model"
 	"github.com/gliss-lab/gliss/sim/phonon"
 )
@@ -221,6 +222,7 @@ func runModelMap(ctx context.Context, env *Env, args []string) error {
 	areaS := fs.String("area-pi", "", fmt.Sprintf("pulse-area axis `FROM:TO:N` in units of π, or one value for a detuning map (allowed %s; default %g)", rngArea, model.DemoParams().AreaPi))
 	detS := fs.String("detuning-mev", "", fmt.Sprintf("detuning axis `FROM:TO:N` in meV instead of --area-pi, or one value (allowed %s; default %g)", rngMeV, model.DemoParams().DetuningMeV))
 	out := fs.String("o", "-", "output CSV `file` (- for standard output)")
+	png := fs.String("png", "", "also draw the XX photon yield n_xx as a heat map into this PNG `file`")
 	if err := parseQuiet(fs, env, args); err != nil {
 		return err
 	}
@@ -332,6 +334,26 @@ func runModelMap(ctx context.Context, env *Env, args []string) error {
 			}
 		}
 		return bw.Flush()
+	}
+	if *png != "" {
+		z := make([]float64, len(pts))
+		for i, mp := range pts {
+			z[i] = mp.NXX
+		}
+		ylabel := "pulse area (π)"
+		if second == model.AxisDetuningMeV {
+			ylabel = "detuning (meV)"
+		}
+		title := "model: XX photons per pulse"
+		if b := pf.phononBath(); b != nil {
+			title += fmt.Sprintf(", %g K", b.TemperatureK)
+		}
+		err := writeFileAtomic(*png, func(w io.Writer) error {
+			return plot.HeatMap(w, gdd, values, z, plot.Options{Title: title, XLabel: "GDD (ps²)", YLabel: ylabel, ZLabel: "n_xx"})
+		})
+		if err != nil {
+			return fmt.Errorf("%s: --png %s: %w", cmd, *png, err)
+		}
 	}
 	if *out == "-" {
 		return write(env.Stdout)

@@ -2,6 +2,9 @@ package cli
 
 import (
 	"encoding/json"
+	"image"
+	_ "image/png"
+	"os"
 	"testing"
 
 	"github.com/gliss-lab/gliss/sim/model"
@@ -55,5 +58,24 @@ func TestModelPointPhonons(t *testing.T) {
 	}
 	if _, _, code := runModelCLI(t, "model", "point", "--temperature-k", "-1"); code != 2 {
 		t.Errorf("--temperature-k -1: exit %d, want 2", code)
+	}
+}
+
+// TestModelMapPNG: --png draws the map as a PNG image of a sensible size.
+func TestModelMapPNG(t *testing.T) {
+	dir := t.TempDir()
+	png := dir + "/map.png"
+	_, errOut, code := runModelCLI(t, "model", "map", "--gdd-ps2", "-20:20:5", "--area-pi", "0:8:5", "-o", dir+"/map.csv", "--png", png)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errOut)
+	}
+	f, err := os.Open(png)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	cfg, format, err := image.DecodeConfig(f)
+	if err != nil || format != "png" || cfg.Width < 200 || cfg.Height < 200 {
+		t.Errorf("PNG: format %q, %dx%d, %v", format, cfg.Width, cfg.Height, err)
 	}
 }
