@@ -13,29 +13,12 @@ import (
 	"google.golang.org/protobuf/encoding/protojson"
 
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
+	"github.com/gliss-lab/gliss/service/plan"
 	"github.com/gliss-lab/gliss/client/npy"
 )
 
 // AxisColumn is the CSV column of an axis kind ("gdd_ps2", "power_uw", …).
-func AxisColumn(k glissv1.AxisKind) string {
-	switch k {
-	case glissv1.AxisKind_AXIS_KIND_GDD_PS2:
-		return "gdd_ps2"
-	case glissv1.AxisKind_AXIS_KIND_STAGE_MM:
-		return "stage_mm"
-	case glissv1.AxisKind_AXIS_KIND_POWER_UW:
-		return "power_uw"
-	case glissv1.AxisKind_AXIS_KIND_ANGLE_DEG:
-		return "angle_deg"
-	case glissv1.AxisKind_AXIS_KIND_DETUNING_MEV:
-		return "detuning_mev"
-	case glissv1.AxisKind_AXIS_KIND_TEMPERATURE_K:
-		return "temperature_k"
-	case glissv1.AxisKind_AXIS_KIND_PULSE_AREA_PI:
-		return "area_pi"
-	}
-	return "axis"
-}
+func AxisColumn(k glissv1.AxisKind) string { return plan.Column(k) }
 
 // commanded columns, in CSV order, with their getters.
 var commandedColumns = []struct {
