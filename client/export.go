@@ -13,8 +13,8 @@ import (
 	"google.golang.org/protobuf/encoding/protojson"
 
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
-	"github.com/gliss-lab/gliss/service/plan"
 	"github.com/gliss-lab/gliss/client/npy"
+	"github.com/gliss-lab/gliss/service/plan"
 )
 
 // AxisColumn is the CSV column of an axis kind ("gdd_ps2", "power_uw", …).
