@@ -120,7 +120,9 @@ func TestPreview(t *testing.T) {
 // TestBadSpecs: every bad spec names its field.
 func TestBadSpecs(t *testing.T) {
 	b := simBench(t)
-	gdd := func(from, to float64, n uint32) *glissv1.Axis { return rng(glissv1.AxisKind_AXIS_KIND_GDD_PS2, from, to, n) }
+	gdd := func(from, to float64, n uint32) *glissv1.Axis {
+		return rng(glissv1.AxisKind_AXIS_KIND_GDD_PS2, from, to, n)
+	}
 	cases := []struct {
 		name  string
 		spec  *glissv1.ScanSpec
