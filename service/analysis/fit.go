@@ -12,7 +12,20 @@ import (
 
 	"github.com/gliss-lab/gliss/drivers/calib"
 	"github.com/gliss-lab/gliss/sim/model"
+	"github.com/gliss-lab/gliss/sim/phonon"
 )
+
+// mapOf is the model map over gdd × areas: with the phonon bath when it is
+// active (sim/phonon), else the plain model (sim/model).
+func mapOf(ctx context.Context, base model.Params, bath *phonon.Bath, gdd, areas []float64) ([]model.MapPoint, error) {
+	if bath.Active() {
+		if err := bath.Validate(); err != nil {
+			return nil, err
+		}
+		return phonon.Map(ctx, base, bath, gdd, model.AxisAreaPi, areas, nil)
+	}
+	return model.Map(ctx, base, gdd, model.AxisAreaPi, areas, nil)
+}
 
 // Channel chooses which photon yield of the model a counter channel sees.
 type Channel int
@@ -65,7 +78,7 @@ func fitParamsOf(x []float64) FitParams {
 
 // yields computes the model yields over gdd × powers for the nonlinear
 // parameters (area scale, binding, detuning), row-major.
-func yields(ctx context.Context, base model.Params, ch Channel, gdd, powers []float64, areaPiPerSqrtUW, bindingMeV, detuningMeV float64) ([]float64, error) {
+func yields(ctx context.Context, base model.Params, bath *phonon.Bath, ch Channel, gdd, powers []float64, areaPiPerSqrtUW, bindingMeV, detuningMeV float64) ([]float64, error) {
 	if !(areaPiPerSqrtUW > 0) {
 		return nil, fmt.Errorf("area scale %g π/√µW: want > 0", areaPiPerSqrtUW)
 	}
@@ -75,7 +88,7 @@ func yields(ctx context.Context, base model.Params, ch Channel, gdd, powers []fl
 	}
 	b := base
 	b.BindingMeV, b.DetuningMeV = bindingMeV, detuningMeV
-	pts, err := model.Map(ctx, b, gdd, model.AxisAreaPi, areas, nil)
+	pts, err := mapOf(ctx, b, bath, gdd, areas)
 	if err != nil {
 		return nil, err
 	}
@@ -91,7 +104,12 @@ func yields(ctx context.Context, base model.Params, ch Channel, gdd, powers []fl
 // supplies the pulse (FWHMPS), the lifetimes and the solver tolerance and p
 // the rest.
 func TheoryMap(ctx context.Context, base model.Params, ch Channel, gddPS2, powersUW []float64, p FitParams) ([][]float64, error) {
-	n, err := yields(ctx, base, ch, gddPS2, powersUW, p.AreaPiPerSqrtUW, p.BindingMeV, p.DetuningMeV)
+	return TheoryMapBath(ctx, base, nil, ch, gddPS2, powersUW, p)
+}
+
+// TheoryMapBath is TheoryMap with the dot's phonon bath (nil or α = 0: none).
+func TheoryMapBath(ctx context.Context, base model.Params, bath *phonon.Bath, ch Channel, gddPS2, powersUW []float64, p FitParams) ([][]float64, error) {
+	n, err := yields(ctx, base, bath, ch, gddPS2, powersUW, p.AreaPiPerSqrtUW, p.BindingMeV, p.DetuningMeV)
 	if err != nil {
 		return nil, fmt.Errorf("theory map: %w", err)
 	}
@@ -128,7 +146,9 @@ type MapFitOptions struct {
 	// Base holds what is not fitted: FWHMPS, the lifetimes, Tolerance
 	// (1e-5 is plenty against counting noise). Its GDD, area, binding and
 	// detuning are ignored.
-	Base    model.Params
+	Base model.Params
+	// Bath is the dot's phonon bath (nil or α = 0: none, the plain model).
+	Bath    *phonon.Bath
 	Channel Channel
 	// Start must give AreaPiPerSqrtUW (e.g. from the pulse-area calibration),
 	// BindingMeV and DetuningMeV; AmplitudeCounts and BackgroundCounts of 0
@@ -189,7 +209,7 @@ func FitMap(ctx context.Context, m PowerChirpMap, opt MapFitOptions) (MapFit, er
 	if !(st.AreaPiPerSqrtUW > 0) || math.IsNaN(st.BindingMeV) || math.IsNaN(st.DetuningMeV) {
 		return MapFit{}, fmt.Errorf("map fit: start area_pi_per_sqrt_uw %g, binding %g meV, detuning %g meV: want area scale > 0 and finite energies", st.AreaPiPerSqrtUW, st.BindingMeV, st.DetuningMeV)
 	}
-	pr := &mapProblem{ctx: ctx, m: m, base: opt.Base, ch: opt.Channel}
+	pr := &mapProblem{ctx: ctx, m: m, base: opt.Base, bath: opt.Bath, ch: opt.Channel}
 	np := len(m.PowerUW)
 	for i := range m.Counts {
 		for j, c := range m.Counts[i] {
@@ -311,7 +331,7 @@ func FitMap(ctx context.Context, m PowerChirpMap, opt MapFitOptions) (MapFit, er
 		sig[k] = math.Sqrt(out.Cov[k*5+k])
 	}
 	out.Sigma = fitParamsOf(sig)
-	out.Model, err = TheoryMap(ctx, opt.Base, opt.Channel, m.GDDPS2, m.PowerUW, out.Params)
+	out.Model, err = TheoryMapBath(ctx, opt.Base, opt.Bath, opt.Channel, m.GDDPS2, m.PowerUW, out.Params)
 	if err != nil {
 		return MapFit{}, fmt.Errorf("map fit: %w", err)
 	}
@@ -332,6 +352,7 @@ type mapProblem struct {
 	ctx  context.Context
 	m    PowerChirpMap
 	base model.Params
+	bath *phonon.Bath
 	ch   Channel
 	idx  []int     // flat indices of the measured points
 	y, w []float64 // counts and 1/σ at those points
@@ -367,7 +388,7 @@ func (pr *mapProblem) yields(x []float64) ([]float64, error) {
 	if pr.nVal != nil && key == pr.nX {
 		return pr.nVal, nil
 	}
-	all, err := yields(pr.ctx, pr.base, pr.ch, pr.m.GDDPS2, pr.m.PowerUW, x[0], x[1], x[2])
+	all, err := yields(pr.ctx, pr.base, pr.bath, pr.ch, pr.m.GDDPS2, pr.m.PowerUW, x[0], x[1], x[2])
 	if err != nil {
 		return nil, err
 	}
@@ -526,12 +547,17 @@ func linearFit(n, y, w []float64) (a, b float64, ok bool) {
 // YieldCurve tabulates the model's yield against pulse area at one chirp
 // and detuning (from base), from 0 to maxAreaPi in steps of stepAreaPi.
 func YieldCurve(ctx context.Context, base model.Params, ch Channel, gddPS2, maxAreaPi, stepAreaPi float64) (calib.YieldCurve, error) {
+	return YieldCurveBath(ctx, base, nil, ch, gddPS2, maxAreaPi, stepAreaPi)
+}
+
+// YieldCurveBath is YieldCurve with the dot's phonon bath (nil: none).
+func YieldCurveBath(ctx context.Context, base model.Params, bath *phonon.Bath, ch Channel, gddPS2, maxAreaPi, stepAreaPi float64) (calib.YieldCurve, error) {
 	if !(stepAreaPi > 0) || !(maxAreaPi > 3*stepAreaPi) || maxAreaPi > model.MaxAreaPi {
 		return calib.YieldCurve{}, fmt.Errorf("yield curve: max area %g π, step %g π: want 0 < 3·step < max ≤ %g", maxAreaPi, stepAreaPi, model.MaxAreaPi)
 	}
 	n := int(math.Round(maxAreaPi/stepAreaPi)) + 1
 	areas := model.Linspace(0, maxAreaPi, n)
-	pts, err := model.Map(ctx, base, []float64{gddPS2}, model.AxisAreaPi, areas, nil)
+	pts, err := mapOf(ctx, base, bath, []float64{gddPS2}, areas)
 	if err != nil {
 		return calib.YieldCurve{}, fmt.Errorf("yield curve: %w", err)
 	}
@@ -549,12 +575,20 @@ func YieldCurve(ctx context.Context, base model.Params, ch Channel, gddPS2, maxA
 // maxAreaPi bounds the area scales the fit searches: make it larger than the
 // largest area the sweep can have reached.
 func CalibratePulseArea(ctx context.Context, base model.Params, powersUW, countsXX []float64, maxAreaPi float64) (calib.PulseAreaFit, error) {
+	return CalibratePulseAreaBath(ctx, base, nil, powersUW, countsXX, maxAreaPi)
+}
+
+// CalibratePulseAreaBath is CalibratePulseArea with the yield curve of the
+// dot with its phonon bath (nil: none). A dot with phonons has damped
+// two-photon Rabi rotations; the plain model's curve then misfits the
+// counts (large χ²) and shifts the π-pulse power.
+func CalibratePulseAreaBath(ctx context.Context, base model.Params, bath *phonon.Bath, powersUW, countsXX []float64, maxAreaPi float64) (calib.PulseAreaFit, error) {
 	if maxAreaPi == 0 {
 		maxAreaPi = 10
 	}
 	b := base
 	b.GDDPS2 = 0
-	curve, err := YieldCurve(ctx, b, ChannelXX, 0, maxAreaPi, 0.01)
+	curve, err := YieldCurveBath(ctx, b, bath, ChannelXX, 0, maxAreaPi, 0.01)
 	if err != nil {
 		return calib.PulseAreaFit{}, fmt.Errorf("pulse area calibration: %w", err)
 	}

@@ -2,18 +2,165 @@ package daemon
 
 import (
 	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"sync"
+	"time"
 
 	"google.golang.org/grpc"
 
+	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
 	"github.com/gliss-lab/gliss/drivers"
+	"github.com/gliss-lab/gliss/drivers/calib"
 	"github.com/gliss-lab/gliss/service/engine"
+	"github.com/gliss-lab/gliss/service/rpc"
 	"github.com/gliss-lab/gliss/service/store"
+	simbench "github.com/gliss-lab/gliss/sim/bench"
 )
 
 // registerServices registers the gRPC services beyond BenchService and
 // ScanService (calibration, analysis, replay) on srv. It returns the stop
 // functions the daemon calls, in order, after the engine has stopped and
 // before the store closes.
+//
+// Calibration: the CalibrationService owns the bench's calibration set in
+// use. At start it applies the newest stored version to the bench
+// (drivers.Bench.SetCalibration, a mutex-guarded swap); the engine plans
+// every submission with Bench.CurrentCalibration (through plan.New) and
+// records the service's current record in the scan (SetCalibrationSource).
+// A put stores the version first, then swaps it in, so a scan never records
+// a version the store lacks.
 func registerServices(ctx context.Context, srv *grpc.Server, eng *engine.Engine, st *store.Store, b *drivers.Bench, cfg Config) ([]func(context.Context) error, error) {
-	return nil, nil
+	cals, err := rpc.NewCalibrations(eng, st)
+	if err != nil {
+		return nil, err
+	}
+	eng.SetCalibrationSource(cals.Current)
+	glissv1.RegisterCalibrationServiceServer(srv, cals)
+
+	log := cfg.Logger
+	if log == nil {
+		log = slog.Default()
+	}
+	rp := &replayer{store: st, log: log, runs: map[string]context.CancelFunc{}}
+	glissv1.RegisterAnalysisServiceServer(srv, &rpc.Analysis{Store: st, Replay: rp.replay})
+	return []func(context.Context) error{rp.stop}, nil
+}
+
+// replayer runs replays. Each replay gets a fresh simulated bench seeded
+// with the original's seed, whose calibration in use is the set the
+// original recorded, and its own engine on the daemon's store: the same
+// spec, seed and calibration then give the same command sequence per
+// instrument and so the same counts bit for bit (sim/bench), whatever the
+// daemon's own bench (simulated or real) has done since. The replay
+// bench is instantaneous (no waiting for motion or gates). The replay
+// engine stops, and its bench closes, when the scan ends.
+type replayer struct {
+	store *store.Store
+	log   *slog.Logger
+
+	mu      sync.Mutex
+	runs    map[string]context.CancelFunc // live replays by new scan id
+	wg      sync.WaitGroup
+	stopped bool
+}
+
+// replayPoll is how often a replay engine is asked whether its scan ended.
+const replayPoll = 20 * time.Millisecond
+
+func (r *replayer) replay(ctx context.Context, orig *glissv1.Scan) (*glissv1.Scan, error) {
+	b, err := simbench.New(simbench.Options{Seed: orig.GetSimSeed(), Instant: true})
+	if err != nil {
+		return nil, fmt.Errorf("replay of %s: simulated bench: %w", orig.GetId(), err)
+	}
+	b.TimeScale = 1e12
+	if js := orig.GetCalibration().GetSetJson(); js != "" {
+		set, err := calib.DecodeSet([]byte(js))
+		if err != nil {
+			b.Close()
+			return nil, fmt.Errorf("replay of %s: recorded calibration (version %d): %w", orig.GetId(), orig.GetCalibration().GetVersion(), err)
+		}
+		b.SetCalibration(drivers.CalibrationFromSet(set, b.Calibration))
+	}
+	eng := engine.New(b, r.store, engine.Options{Logger: r.log.With("replay_of", orig.GetId())})
+
+	r.mu.Lock()
+	if r.stopped {
+		r.mu.Unlock()
+		b.Close()
+		return nil, fmt.Errorf("replay of %s: glissd is stopping: %w", orig.GetId(), drivers.ErrUnavailable)
+	}
+	rctx, cancel := context.WithCancel(context.Background())
+	r.wg.Add(1)
+	r.mu.Unlock()
+
+	runDone := make(chan error, 1)
+	go func() { runDone <- eng.Run(rctx) }()
+	sc, err := eng.SubmitWith(ctx, orig.GetSpec(), engine.SubmitOptions{ReplayOf: orig.GetId(), Calibration: orig.GetCalibration()})
+	if err != nil {
+		cancel()
+		<-runDone
+		b.Close()
+		r.wg.Done()
+		return nil, err
+	}
+	r.mu.Lock()
+	r.runs[sc.GetId()] = cancel
+	if r.stopped {
+		cancel()
+	}
+	r.mu.Unlock()
+	go func() {
+		defer r.wg.Done()
+		t := time.NewTicker(replayPoll)
+		defer t.Stop()
+	wait:
+		for {
+			select {
+			case <-rctx.Done():
+				break wait
+			case <-t.C:
+				cur, err := eng.Get(sc.GetId())
+				if err != nil {
+					r.log.Error("replay: read scan", "scan", sc.GetId(), "err", err)
+					break wait
+				}
+				if s := cur.GetState(); s == glissv1.ScanState_SCAN_STATE_SUCCEEDED || s == glissv1.ScanState_SCAN_STATE_FAILED || s == glissv1.ScanState_SCAN_STATE_CANCELLED {
+					break wait
+				}
+			}
+		}
+		cancel()
+		if err := <-runDone; err != nil && !errors.Is(err, context.Canceled) {
+			r.log.Error("replay engine", "scan", sc.GetId(), "err", err)
+		}
+		if err := b.Close(); err != nil {
+			r.log.Error("replay bench: close", "scan", sc.GetId(), "err", err)
+		}
+		r.mu.Lock()
+		delete(r.runs, sc.GetId())
+		r.mu.Unlock()
+	}()
+	r.log.Info("replay queued", "scan", sc.GetId(), "replay_of", orig.GetId(), "seed", orig.GetSimSeed(), "calibration_version", orig.GetCalibration().GetVersion())
+	return sc, nil
+}
+
+// stop ends every live replay (a running one becomes INTERRUPTED, as on
+// the daemon's own engine) and waits for their engines.
+func (r *replayer) stop(ctx context.Context) error {
+	r.mu.Lock()
+	r.stopped = true
+	for _, cancel := range r.runs {
+		cancel()
+	}
+	r.mu.Unlock()
+	done := make(chan struct{})
+	go func() { r.wg.Wait(); close(done) }()
+	select {
+	case <-done:
+		return nil
+	case <-ctx.Done():
+		return fmt.Errorf("replays did not stop in time: %w", ctx.Err())
+	}
 }

@@ -33,8 +33,10 @@ type DotModel struct {
 	// Counts per unit yield and background counts of the channel.
 	AmplitudeCounts  *float64 `protobuf:"fixed64,5,opt,name=amplitude_counts,json=amplitudeCounts,proto3,oneof" json:"amplitude_counts,omitempty"`
 	BackgroundCounts *float64 `protobuf:"fixed64,6,opt,name=background_counts,json=backgroundCounts,proto3,oneof" json:"background_counts,omitempty"`
-	unknownFields    protoimpl.UnknownFields
-	sizeCache        protoimpl.SizeCache
+	// The dot's phonon bath (absent: none).
+	Phonons       *Phonons `protobuf:"bytes,7,opt,name=phonons,proto3" json:"phonons,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *DotModel) Reset() {
@@ -107,6 +109,13 @@ func (x *DotModel) GetBackgroundCounts() float64 {
 		return *x.BackgroundCounts
 	}
 	return 0
+}
+
+func (x *DotModel) GetPhonons() *Phonons {
+	if x != nil {
+		return x.Phonons
+	}
+	return nil
 }
 
 type AnalyseScanRequest struct {
@@ -1202,7 +1211,7 @@ var File_gliss_v1_analysis_proto protoreflect.FileDescriptor
 
 const file_gliss_v1_analysis_proto_rawDesc = "" +
 	"\n" +
-	"\x17gliss/v1/analysis.proto\x12\bgliss.v1\x1a\x13gliss/v1/scan.proto\"\xfb\x02\n" +
+	"\x17gliss/v1/analysis.proto\x12\bgliss.v1\x1a\x1agliss/v1/calibration.proto\x1a\x13gliss/v1/scan.proto\"\xa8\x03\n" +
 	"\bDotModel\x12\x1c\n" +
 	"\afwhm_ps\x18\x01 \x01(\x01H\x00R\x06fwhmPs\x88\x01\x01\x12$\n" +
 	"\vbinding_mev\x18\x02 \x01(\x01H\x01R\n" +
@@ -1210,7 +1219,8 @@ const file_gliss_v1_analysis_proto_rawDesc = "" +
 	"\fdetuning_mev\x18\x03 \x01(\x01H\x02R\vdetuningMev\x88\x01\x01\x121\n" +
 	"\x13area_pi_per_sqrt_uw\x18\x04 \x01(\x01H\x03R\x0fareaPiPerSqrtUw\x88\x01\x01\x12.\n" +
 	"\x10amplitude_counts\x18\x05 \x01(\x01H\x04R\x0famplitudeCounts\x88\x01\x01\x120\n" +
-	"\x11background_counts\x18\x06 \x01(\x01H\x05R\x10backgroundCounts\x88\x01\x01B\n" +
+	"\x11background_counts\x18\x06 \x01(\x01H\x05R\x10backgroundCounts\x88\x01\x01\x12+\n" +
+	"\aphonons\x18\a \x01(\v2\x11.gliss.v1.PhononsR\aphononsB\n" +
 	"\n" +
 	"\b_fwhm_psB\x0e\n" +
 	"\f_binding_mevB\x0f\n" +
@@ -1349,36 +1359,38 @@ var file_gliss_v1_analysis_proto_goTypes = []any{
 	(*ReplayScanResponse)(nil),   // 12: gliss.v1.ReplayScanResponse
 	(*TheoryMapRequest)(nil),     // 13: gliss.v1.TheoryMapRequest
 	(*TheoryMapResponse)(nil),    // 14: gliss.v1.TheoryMapResponse
-	(*Scan)(nil),                 // 15: gliss.v1.Scan
+	(*Phonons)(nil),              // 15: gliss.v1.Phonons
+	(*Scan)(nil),                 // 16: gliss.v1.Scan
 }
 var file_gliss_v1_analysis_proto_depIdxs = []int32{
-	0,  // 0: gliss.v1.AnalyseScanRequest.model:type_name -> gliss.v1.DotModel
-	3,  // 1: gliss.v1.MapFit.params:type_name -> gliss.v1.FitParams
-	3,  // 2: gliss.v1.MapFit.sigma:type_name -> gliss.v1.FitParams
-	4,  // 3: gliss.v1.MapFit.model:type_name -> gliss.v1.GridRow
-	4,  // 4: gliss.v1.MapFit.residuals:type_name -> gliss.v1.GridRow
-	2,  // 5: gliss.v1.AnalyseScanResponse.chirps:type_name -> gliss.v1.ChirpPlateau
-	5,  // 6: gliss.v1.AnalyseScanResponse.fit:type_name -> gliss.v1.MapFit
-	8,  // 7: gliss.v1.CompareScansResponse.channels:type_name -> gliss.v1.ChannelDeviation
-	9,  // 8: gliss.v1.CompareScansResponse.rows:type_name -> gliss.v1.DiffRow
-	15, // 9: gliss.v1.ReplayScanResponse.scan:type_name -> gliss.v1.Scan
-	0,  // 10: gliss.v1.TheoryMapRequest.model:type_name -> gliss.v1.DotModel
-	4,  // 11: gliss.v1.TheoryMapResponse.yield:type_name -> gliss.v1.GridRow
-	4,  // 12: gliss.v1.TheoryMapResponse.counts:type_name -> gliss.v1.GridRow
-	3,  // 13: gliss.v1.TheoryMapResponse.params:type_name -> gliss.v1.FitParams
-	1,  // 14: gliss.v1.AnalysisService.AnalyseScan:input_type -> gliss.v1.AnalyseScanRequest
-	7,  // 15: gliss.v1.AnalysisService.CompareScans:input_type -> gliss.v1.CompareScansRequest
-	11, // 16: gliss.v1.AnalysisService.ReplayScan:input_type -> gliss.v1.ReplayScanRequest
-	13, // 17: gliss.v1.AnalysisService.TheoryMap:input_type -> gliss.v1.TheoryMapRequest
-	6,  // 18: gliss.v1.AnalysisService.AnalyseScan:output_type -> gliss.v1.AnalyseScanResponse
-	10, // 19: gliss.v1.AnalysisService.CompareScans:output_type -> gliss.v1.CompareScansResponse
-	12, // 20: gliss.v1.AnalysisService.ReplayScan:output_type -> gliss.v1.ReplayScanResponse
-	14, // 21: gliss.v1.AnalysisService.TheoryMap:output_type -> gliss.v1.TheoryMapResponse
-	18, // [18:22] is the sub-list for method output_type
-	14, // [14:18] is the sub-list for method input_type
-	14, // [14:14] is the sub-list for extension type_name
-	14, // [14:14] is the sub-list for extension extendee
-	0,  // [0:14] is the sub-list for field type_name
+	15, // 0: gliss.v1.DotModel.phonons:type_name -> gliss.v1.Phonons
+	0,  // 1: gliss.v1.AnalyseScanRequest.model:type_name -> gliss.v1.DotModel
+	3,  // 2: gliss.v1.MapFit.params:type_name -> gliss.v1.FitParams
+	3,  // 3: gliss.v1.MapFit.sigma:type_name -> gliss.v1.FitParams
+	4,  // 4: gliss.v1.MapFit.model:type_name -> gliss.v1.GridRow
+	4,  // 5: gliss.v1.MapFit.residuals:type_name -> gliss.v1.GridRow
+	2,  // 6: gliss.v1.AnalyseScanResponse.chirps:type_name -> gliss.v1.ChirpPlateau
+	5,  // 7: gliss.v1.AnalyseScanResponse.fit:type_name -> gliss.v1.MapFit
+	8,  // 8: gliss.v1.CompareScansResponse.channels:type_name -> gliss.v1.ChannelDeviation
+	9,  // 9: gliss.v1.CompareScansResponse.rows:type_name -> gliss.v1.DiffRow
+	16, // 10: gliss.v1.ReplayScanResponse.scan:type_name -> gliss.v1.Scan
+	0,  // 11: gliss.v1.TheoryMapRequest.model:type_name -> gliss.v1.DotModel
+	4,  // 12: gliss.v1.TheoryMapResponse.yield:type_name -> gliss.v1.GridRow
+	4,  // 13: gliss.v1.TheoryMapResponse.counts:type_name -> gliss.v1.GridRow
+	3,  // 14: gliss.v1.TheoryMapResponse.params:type_name -> gliss.v1.FitParams
+	1,  // 15: gliss.v1.AnalysisService.AnalyseScan:input_type -> gliss.v1.AnalyseScanRequest
+	7,  // 16: gliss.v1.AnalysisService.CompareScans:input_type -> gliss.v1.CompareScansRequest
+	11, // 17: gliss.v1.AnalysisService.ReplayScan:input_type -> gliss.v1.ReplayScanRequest
+	13, // 18: gliss.v1.AnalysisService.TheoryMap:input_type -> gliss.v1.TheoryMapRequest
+	6,  // 19: gliss.v1.AnalysisService.AnalyseScan:output_type -> gliss.v1.AnalyseScanResponse
+	10, // 20: gliss.v1.AnalysisService.CompareScans:output_type -> gliss.v1.CompareScansResponse
+	12, // 21: gliss.v1.AnalysisService.ReplayScan:output_type -> gliss.v1.ReplayScanResponse
+	14, // 22: gliss.v1.AnalysisService.TheoryMap:output_type -> gliss.v1.TheoryMapResponse
+	19, // [19:23] is the sub-list for method output_type
+	15, // [15:19] is the sub-list for method input_type
+	15, // [15:15] is the sub-list for extension type_name
+	15, // [15:15] is the sub-list for extension extendee
+	0,  // [0:15] is the sub-list for field type_name
 }
 
 func init() { file_gliss_v1_analysis_proto_init() }
@@ -1386,6 +1398,7 @@ func file_gliss_v1_analysis_proto_init() {
 	if File_gliss_v1_analysis_proto != nil {
 		return
 	}
+	file_gliss_v1_calibration_proto_init()
 	file_gliss_v1_scan_proto_init()
 	file_gliss_v1_analysis_proto_msgTypes[0].OneofWrappers = []any{}
 	type x struct{}

@@ -550,11 +550,13 @@ type CalibratePulseAreaRequest struct {
 	// Largest pulse area the fit considers, π (default 10).
 	MaxAreaPi float64 `protobuf:"fixed64,3,opt,name=max_area_pi,json=maxAreaPi,proto3" json:"max_area_pi,omitempty"`
 	// The dot model (absent fields: the demo dot of the physics reference).
-	FwhmPs        *float64 `protobuf:"fixed64,4,opt,name=fwhm_ps,json=fwhmPs,proto3,oneof" json:"fwhm_ps,omitempty"`
-	BindingMev    *float64 `protobuf:"fixed64,5,opt,name=binding_mev,json=bindingMev,proto3,oneof" json:"binding_mev,omitempty"`
-	DetuningMev   *float64 `protobuf:"fixed64,6,opt,name=detuning_mev,json=detuningMev,proto3,oneof" json:"detuning_mev,omitempty"`
-	Note          string   `protobuf:"bytes,7,opt,name=note,proto3" json:"note,omitempty"`
-	DryRun        bool     `protobuf:"varint,8,opt,name=dry_run,json=dryRun,proto3" json:"dry_run,omitempty"`
+	FwhmPs      *float64 `protobuf:"fixed64,4,opt,name=fwhm_ps,json=fwhmPs,proto3,oneof" json:"fwhm_ps,omitempty"`
+	BindingMev  *float64 `protobuf:"fixed64,5,opt,name=binding_mev,json=bindingMev,proto3,oneof" json:"binding_mev,omitempty"`
+	DetuningMev *float64 `protobuf:"fixed64,6,opt,name=detuning_mev,json=detuningMev,proto3,oneof" json:"detuning_mev,omitempty"`
+	Note        string   `protobuf:"bytes,7,opt,name=note,proto3" json:"note,omitempty"`
+	DryRun      bool     `protobuf:"varint,8,opt,name=dry_run,json=dryRun,proto3" json:"dry_run,omitempty"`
+	// The dot's phonon bath (absent: none, the plain three-level model).
+	Phonons       *Phonons `protobuf:"bytes,9,opt,name=phonons,proto3" json:"phonons,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -645,6 +647,76 @@ func (x *CalibratePulseAreaRequest) GetDryRun() bool {
 	return false
 }
 
+func (x *CalibratePulseAreaRequest) GetPhonons() *Phonons {
+	if x != nil {
+		return x.Phonons
+	}
+	return nil
+}
+
+// Phonons is a dot's longitudinal-acoustic phonon bath (J(ω) = α·ω³·
+// exp(−ω²/ωc²), thermally occupied at the sample temperature). The demo
+// dot's: α 0.030 ps², ħωc 1.2 meV.
+type Phonons struct {
+	state         protoimpl.MessageState `protogen:"open.v1"`
+	AlphaPs2      float64                `protobuf:"fixed64,1,opt,name=alpha_ps2,json=alphaPs2,proto3" json:"alpha_ps2,omitempty"`
+	CutoffMev     float64                `protobuf:"fixed64,2,opt,name=cutoff_mev,json=cutoffMev,proto3" json:"cutoff_mev,omitempty"`
+	TemperatureK  float64                `protobuf:"fixed64,3,opt,name=temperature_k,json=temperatureK,proto3" json:"temperature_k,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *Phonons) Reset() {
+	*x = Phonons{}
+	mi := &file_gliss_v1_calibration_proto_msgTypes[8]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *Phonons) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*Phonons) ProtoMessage() {}
+
+func (x *Phonons) ProtoReflect() protoreflect.Message {
+	mi := &file_gliss_v1_calibration_proto_msgTypes[8]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use Phonons.ProtoReflect.Descriptor instead.
+func (*Phonons) Descriptor() ([]byte, []int) {
+	return file_gliss_v1_calibration_proto_rawDescGZIP(), []int{8}
+}
+
+func (x *Phonons) GetAlphaPs2() float64 {
+	if x != nil {
+		return x.AlphaPs2
+	}
+	return 0
+}
+
+func (x *Phonons) GetCutoffMev() float64 {
+	if x != nil {
+		return x.CutoffMev
+	}
+	return 0
+}
+
+func (x *Phonons) GetTemperatureK() float64 {
+	if x != nil {
+		return x.TemperatureK
+	}
+	return 0
+}
+
 type PulseAreaCalibrationResult struct {
 	state       protoimpl.MessageState `protogen:"open.v1"`
 	Calibration *CalibrationRecord     `protobuf:"bytes,1,opt,name=calibration,proto3" json:"calibration,omitempty"`
@@ -663,7 +735,7 @@ type PulseAreaCalibrationResult struct {
 
 func (x *PulseAreaCalibrationResult) Reset() {
 	*x = PulseAreaCalibrationResult{}
-	mi := &file_gliss_v1_calibration_proto_msgTypes[8]
+	mi := &file_gliss_v1_calibration_proto_msgTypes[9]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -675,7 +747,7 @@ func (x *PulseAreaCalibrationResult) String() string {
 func (*PulseAreaCalibrationResult) ProtoMessage() {}
 
 func (x *PulseAreaCalibrationResult) ProtoReflect() protoreflect.Message {
-	mi := &file_gliss_v1_calibration_proto_msgTypes[8]
+	mi := &file_gliss_v1_calibration_proto_msgTypes[9]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -688,7 +760,7 @@ func (x *PulseAreaCalibrationResult) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use PulseAreaCalibrationResult.ProtoReflect.Descriptor instead.
 func (*PulseAreaCalibrationResult) Descriptor() ([]byte, []int) {
-	return file_gliss_v1_calibration_proto_rawDescGZIP(), []int{8}
+	return file_gliss_v1_calibration_proto_rawDescGZIP(), []int{9}
 }
 
 func (x *PulseAreaCalibrationResult) GetCalibration() *CalibrationRecord {
@@ -779,7 +851,7 @@ const file_gliss_v1_calibration_proto_rawDesc = "" +
 	"\fresiduals_uw\x18\x04 \x03(\x01R\vresidualsUw\x12&\n" +
 	"\x0frms_residual_uw\x18\x05 \x01(\x01R\rrmsResidualUw\x12&\n" +
 	"\x0fmax_residual_uw\x18\x06 \x01(\x01R\rmaxResidualUw\x12\x19\n" +
-	"\bfit_json\x18\a \x01(\tR\afitJson\"\xb4\x02\n" +
+	"\bfit_json\x18\a \x01(\tR\afitJson\"\xe1\x02\n" +
 	"\x19CalibratePulseAreaRequest\x12\x17\n" +
 	"\ascan_id\x18\x01 \x01(\tR\x06scanId\x12\x18\n" +
 	"\achannel\x18\x02 \x01(\tR\achannel\x12\x1e\n" +
@@ -789,11 +861,17 @@ const file_gliss_v1_calibration_proto_rawDesc = "" +
 	"bindingMev\x88\x01\x01\x12&\n" +
 	"\fdetuning_mev\x18\x06 \x01(\x01H\x02R\vdetuningMev\x88\x01\x01\x12\x12\n" +
 	"\x04note\x18\a \x01(\tR\x04note\x12\x17\n" +
-	"\adry_run\x18\b \x01(\bR\x06dryRunB\n" +
+	"\adry_run\x18\b \x01(\bR\x06dryRun\x12+\n" +
+	"\aphonons\x18\t \x01(\v2\x11.gliss.v1.PhononsR\aphononsB\n" +
 	"\n" +
 	"\b_fwhm_psB\x0e\n" +
 	"\f_binding_mevB\x0f\n" +
-	"\r_detuning_mev\"\xc6\x02\n" +
+	"\r_detuning_mev\"j\n" +
+	"\aPhonons\x12\x1b\n" +
+	"\talpha_ps2\x18\x01 \x01(\x01R\balphaPs2\x12\x1d\n" +
+	"\n" +
+	"cutoff_mev\x18\x02 \x01(\x01R\tcutoffMev\x12#\n" +
+	"\rtemperature_k\x18\x03 \x01(\x01R\ftemperatureK\"\xc6\x02\n" +
 	"\x1aPulseAreaCalibrationResult\x12=\n" +
 	"\vcalibration\x18\x01 \x01(\v2\x1b.gliss.v1.CalibrationRecordR\vcalibration\x12,\n" +
 	"\x13area_pi_per_sqrt_uw\x18\x02 \x01(\x01R\x0fareaPiPerSqrtUw\x127\n" +
@@ -827,7 +905,7 @@ func file_gliss_v1_calibration_proto_rawDescGZIP() []byte {
 }
 
 var file_gliss_v1_calibration_proto_enumTypes = make([]protoimpl.EnumInfo, 1)
-var file_gliss_v1_calibration_proto_msgTypes = make([]protoimpl.MessageInfo, 9)
+var file_gliss_v1_calibration_proto_msgTypes = make([]protoimpl.MessageInfo, 10)
 var file_gliss_v1_calibration_proto_goTypes = []any{
 	(AttenuatorLaw)(0),                      // 0: gliss.v1.AttenuatorLaw
 	(*CalibrationRecord)(nil),               // 1: gliss.v1.CalibrationRecord
@@ -838,30 +916,32 @@ var file_gliss_v1_calibration_proto_goTypes = []any{
 	(*RunAttenuatorCalibrationRequest)(nil), // 6: gliss.v1.RunAttenuatorCalibrationRequest
 	(*AttenuatorCalibrationResult)(nil),     // 7: gliss.v1.AttenuatorCalibrationResult
 	(*CalibratePulseAreaRequest)(nil),       // 8: gliss.v1.CalibratePulseAreaRequest
-	(*PulseAreaCalibrationResult)(nil),      // 9: gliss.v1.PulseAreaCalibrationResult
-	(*timestamppb.Timestamp)(nil),           // 10: google.protobuf.Timestamp
+	(*Phonons)(nil),                         // 9: gliss.v1.Phonons
+	(*PulseAreaCalibrationResult)(nil),      // 10: gliss.v1.PulseAreaCalibrationResult
+	(*timestamppb.Timestamp)(nil),           // 11: google.protobuf.Timestamp
 }
 var file_gliss_v1_calibration_proto_depIdxs = []int32{
-	10, // 0: gliss.v1.CalibrationRecord.created_at:type_name -> google.protobuf.Timestamp
+	11, // 0: gliss.v1.CalibrationRecord.created_at:type_name -> google.protobuf.Timestamp
 	1,  // 1: gliss.v1.ListCalibrationsResponse.calibrations:type_name -> gliss.v1.CalibrationRecord
 	0,  // 2: gliss.v1.RunAttenuatorCalibrationRequest.law:type_name -> gliss.v1.AttenuatorLaw
 	1,  // 3: gliss.v1.AttenuatorCalibrationResult.calibration:type_name -> gliss.v1.CalibrationRecord
-	1,  // 4: gliss.v1.PulseAreaCalibrationResult.calibration:type_name -> gliss.v1.CalibrationRecord
-	2,  // 5: gliss.v1.CalibrationService.GetCalibration:input_type -> gliss.v1.GetCalibrationRequest
-	3,  // 6: gliss.v1.CalibrationService.ListCalibrations:input_type -> gliss.v1.ListCalibrationsRequest
-	5,  // 7: gliss.v1.CalibrationService.PutCalibration:input_type -> gliss.v1.PutCalibrationRequest
-	6,  // 8: gliss.v1.CalibrationService.RunAttenuatorCalibration:input_type -> gliss.v1.RunAttenuatorCalibrationRequest
-	8,  // 9: gliss.v1.CalibrationService.CalibratePulseArea:input_type -> gliss.v1.CalibratePulseAreaRequest
-	1,  // 10: gliss.v1.CalibrationService.GetCalibration:output_type -> gliss.v1.CalibrationRecord
-	4,  // 11: gliss.v1.CalibrationService.ListCalibrations:output_type -> gliss.v1.ListCalibrationsResponse
-	1,  // 12: gliss.v1.CalibrationService.PutCalibration:output_type -> gliss.v1.CalibrationRecord
-	7,  // 13: gliss.v1.CalibrationService.RunAttenuatorCalibration:output_type -> gliss.v1.AttenuatorCalibrationResult
-	9,  // 14: gliss.v1.CalibrationService.CalibratePulseArea:output_type -> gliss.v1.PulseAreaCalibrationResult
-	10, // [10:15] is the sub-list for method output_type
-	5,  // [5:10] is the sub-list for method input_type
-	5,  // [5:5] is the sub-list for extension type_name
-	5,  // [5:5] is the sub-list for extension extendee
-	0,  // [0:5] is the sub-list for field type_name
+	9,  // 4: gliss.v1.CalibratePulseAreaRequest.phonons:type_name -> gliss.v1.Phonons
+	1,  // 5: gliss.v1.PulseAreaCalibrationResult.calibration:type_name -> gliss.v1.CalibrationRecord
+	2,  // 6: gliss.v1.CalibrationService.GetCalibration:input_type -> gliss.v1.GetCalibrationRequest
+	3,  // 7: gliss.v1.CalibrationService.ListCalibrations:input_type -> gliss.v1.ListCalibrationsRequest
+	5,  // 8: gliss.v1.CalibrationService.PutCalibration:input_type -> gliss.v1.PutCalibrationRequest
+	6,  // 9: gliss.v1.CalibrationService.RunAttenuatorCalibration:input_type -> gliss.v1.RunAttenuatorCalibrationRequest
+	8,  // 10: gliss.v1.CalibrationService.CalibratePulseArea:input_type -> gliss.v1.CalibratePulseAreaRequest
+	1,  // 11: gliss.v1.CalibrationService.GetCalibration:output_type -> gliss.v1.CalibrationRecord
+	4,  // 12: gliss.v1.CalibrationService.ListCalibrations:output_type -> gliss.v1.ListCalibrationsResponse
+	1,  // 13: gliss.v1.CalibrationService.PutCalibration:output_type -> gliss.v1.CalibrationRecord
+	7,  // 14: gliss.v1.CalibrationService.RunAttenuatorCalibration:output_type -> gliss.v1.AttenuatorCalibrationResult
+	10, // 15: gliss.v1.CalibrationService.CalibratePulseArea:output_type -> gliss.v1.PulseAreaCalibrationResult
+	11, // [11:16] is the sub-list for method output_type
+	6,  // [6:11] is the sub-list for method input_type
+	6,  // [6:6] is the sub-list for extension type_name
+	6,  // [6:6] is the sub-list for extension extendee
+	0,  // [0:6] is the sub-list for field type_name
 }
 
 func init() { file_gliss_v1_calibration_proto_init() }
@@ -877,7 +957,7 @@ func file_gliss_v1_calibration_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_gliss_v1_calibration_proto_rawDesc), len(file_gliss_v1_calibration_proto_rawDesc)),
 			NumEnums:      1,
-			NumMessages:   9,
+			NumMessages:   10,
 			NumExtensions: 0,
 			NumServices:   1,
 		},
