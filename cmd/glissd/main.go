@@ -35,6 +35,7 @@ func run(args []string) int {
 	seed := fs.Uint64("sim-seed", 1, "seed of the simulated bench's noise (same seed, same scan)")
 	speed := fs.Float64("sim-speed", 1, "run the simulated bench's motion, gates and settle times this many times faster than real time (1 to 1e6)")
 	instant := fs.Bool("sim-instant", false, "simulated instruments take no time at all (benchmarks)")
+	quiet := fs.Bool("sim-quiet", false, "simulated laser without power noise and power meter without reading noise (benchmarks)")
 	record := fs.String("record", "", "write every instrument transaction (time, instrument, sent, received, latency) as JSON lines to a new file in this directory")
 	autoResume := fs.Bool("auto-resume", false, "continue INTERRUPTED scans at start, from their first point not stored")
 	logLevel := fs.String("log-level", "info", "debug, info, warn or error")
@@ -76,7 +77,7 @@ func run(args []string) int {
 	defer stop()
 	d, err := daemon.Start(ctx, daemon.Config{
 		Listen: *listen, DataDir: *data, BenchFile: *benchFile, OpenBench: benchOpener(*record, log),
-		SimSeed: *seed, SimSpeed: *speed, SimInstant: *instant, AutoResume: *autoResume, Logger: log,
+		SimSeed: *seed, SimSpeed: *speed, SimInstant: *instant, SimQuiet: *quiet, AutoResume: *autoResume, Logger: log,
 		TLSCertFile: *tlsCert, TLSKeyFile: *tlsKey, TokensFile: *tokens,
 	})
 	if err != nil {

@@ -52,6 +52,10 @@ type Config struct {
 	SimSpeed float64
 	// SimInstant makes the simulated instruments take no time at all.
 	SimInstant bool
+	// SimQuiet turns the simulated laser's power noise and the power
+	// meter's reading noise off: repeated settings then give repeated
+	// optical states, which the simulated bench computes once (benchmarks).
+	SimQuiet bool
 	// AutoResume queues INTERRUPTED scans again at start.
 	AutoResume bool
 	Logger     *slog.Logger
@@ -222,7 +226,11 @@ func openBench(ctx context.Context, cfg Config, log *slog.Logger) (*drivers.Benc
 		}
 		return b, nil
 	}
-	b, err := simbench.New(simbench.Options{Seed: cfg.SimSeed, Speed: cfg.SimSpeed, Instant: cfg.SimInstant, Logger: log})
+	o := simbench.Options{Seed: cfg.SimSeed, Speed: cfg.SimSpeed, Instant: cfg.SimInstant, Logger: log}
+	if cfg.SimQuiet {
+		o.PowerNoiseRel, o.MeterNoiseRel = -1, -1
+	}
+	b, err := simbench.New(o)
 	if err != nil {
 		return nil, fmt.Errorf("simulated bench: %w", err)
 	}

@@ -24,7 +24,7 @@ import (
 )
 
 // buildGlissd builds cmd/glissd once into dir.
-func buildGlissd(t *testing.T, dir string) string {
+func buildGlissd(t testing.TB, dir string) string {
 	t.Helper()
 	bin := filepath.Join(dir, "glissd")
 	cmd := exec.Command("go", "build", "-o", bin, "github.com/gliss-lab/gliss/cmd/glissd")
@@ -45,7 +45,7 @@ type proc struct {
 
 var listenRE = regexp.MustCompile(`msg="glissd serving" listen=(\S+)`)
 
-func startGlissd(t *testing.T, bin string, args ...string) *proc {
+func startGlissd(t testing.TB, bin string, args ...string) *proc {
 	t.Helper()
 	cmd := exec.Command(bin, args...)
 	stderr, err := cmd.StderrPipe()

@@ -110,6 +110,9 @@ type run struct {
 	rec     *glissv1.Scan
 	plan    *plan.Plan
 	version uint64 // incremented on each record change
+	// changes counts record changes and log lines, for watchers to skip
+	// looking at an unchanged record (readable without mu).
+	changes atomic.Uint64
 
 	// state mirrors rec.State for readers that hold e.mu (lock order:
 	// r.mu before e.mu, never the reverse).
@@ -121,6 +124,9 @@ type run struct {
 	durable  uint64 // points known durable
 	recent   []*glissv1.Point
 	writeErr error
+	// notifyPending: a wake-up of the watchers for new durable points is
+	// on its way.
+	notifyPending atomic.Bool
 
 	pauseReq, cancelReq string // reasons; "" when not requested
 	pauseSet, cancelSet bool
@@ -162,7 +168,9 @@ func (r *run) takeWriteErr() error {
 	return err
 }
 
-const recentCap = 4096
+// recentCap bounds the ring of recent durable points that watchers read
+// without going to the store (pointers to points already in memory).
+const recentCap = 16384
 const logCap = 256
 
 func newID(now time.Time) string {
@@ -327,6 +335,7 @@ func short(s glissv1.ScanState) string {
 }
 
 func (e *Engine) appendLogLocked(r *run, level, msg string) {
+	defer r.changes.Add(1)
 	r.logs = append(r.logs, &glissv1.LogLine{At: timestamppb.New(e.opts.Now()), Level: level, Message: msg})
 	if len(r.logs) > logCap {
 		r.logs = append(r.logs[:0:0], r.logs[len(r.logs)-logCap:]...)

@@ -203,7 +203,16 @@ func (e *Engine) pointDurable(r *run, p *glissv1.Point, err error) {
 	}
 	r.recent = append(r.recent, p)
 	r.pmu.Unlock()
-	e.notify(r.rec.Id)
+	// One wake-up per burst of durable points (a commit calls back for
+	// each of its points in a row): the flag is cleared before the
+	// watchers are woken, so a point made durable after the clear gets a
+	// wake-up of its own and none is missed.
+	if r.notifyPending.CompareAndSwap(false, true) {
+		go func() {
+			r.notifyPending.Store(false)
+			e.notify(r.rec.Id)
+		}()
+	}
 }
 
 // between handles pause and cancel requests and daemon shutdown; stop is

@@ -68,6 +68,9 @@ func (e *Engine) Watch(ctx context.Context, id string, from uint64, send func(*g
 	sentTransitions := len(rec.Transitions)
 	sentState := rec.State
 	logCursor := -1 // set on the first live look
+	var cur *glissv1.Scan
+	var ok, looked bool
+	var seen uint64
 	for {
 		// Points: from the live ring when it has them, else from the store.
 		for {
@@ -105,16 +108,21 @@ func (e *Engine) Watch(ctx context.Context, id string, from uint64, send func(*g
 				return err
 			}
 		}
-		// Log lines of the live scan.
-		logs, next := e.logsFrom(id, logCursor)
-		logCursor = next
-		for _, l := range logs {
-			if err := send(&glissv1.ScanEvent{Event: &glissv1.ScanEvent_Log{Log: l}}); err != nil {
-				return err
+		// Log lines and the record: looked at only when they changed since
+		// the last look (every change and log line counts in run.changes,
+		// before the watchers are woken).
+		if ch, live := e.changesOf(id); !live || !looked || ch != seen {
+			seen, looked = ch, true
+			logs, next := e.logsFrom(id, logCursor)
+			logCursor = next
+			for _, l := range logs {
+				if err := send(&glissv1.ScanEvent{Event: &glissv1.ScanEvent_Log{Log: l}}); err != nil {
+					return err
+				}
 			}
+			cur, ok, _ = e.snapshotOrStored(id)
 		}
 		// State: send the record when it changed.
-		cur, ok, _ := e.snapshotOrStored(id)
 		if ok && (len(cur.Transitions) != sentTransitions || cur.State != sentState) {
 			// The record is sent after the points it counts.
 			if cur.PointsStored > cursor {
@@ -137,6 +145,17 @@ func (e *Engine) Watch(ctx context.Context, id string, from uint64, send func(*g
 }
 
 var errCaughtUp = errors.New("caught up")
+
+// changesOf returns a live scan's change count (false: not live).
+func (e *Engine) changesOf(id string) (uint64, bool) {
+	e.mu.Lock()
+	r := e.runs[id]
+	e.mu.Unlock()
+	if r == nil {
+		return 0, false
+	}
+	return r.changes.Load(), true
+}
 
 // recentFrom returns the ring's points from seq on, the durable count, and
 // whether the scan is live. Points before the ring are not returned.

@@ -1,0 +1,433 @@
+package daemon_test
+
+import (
+	"bufio"
+	"context"
+	"encoding/binary"
+	"fmt"
+	"io"
+	"log/slog"
+	"os"
+	"path/filepath"
+	"slices"
+	"strconv"
+	"strings"
+	"sync"
+	"syscall"
+	"testing"
+	"time"
+
+	bolt "go.etcd.io/bbolt"
+	"google.golang.org/protobuf/proto"
+
+	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
+	"github.com/gliss-lab/gliss/client"
+	"github.com/gliss-lab/gliss/drivers"
+	"github.com/gliss-lab/gliss/service/daemon"
+	simbench "github.com/gliss-lab/gliss/sim/bench"
+)
+
+// Benchmarks of the daemon as a whole:
+//
+//	go test ./service/daemon -run '^$' -bench . -benchtime 3x
+//
+// Every benchmark runs scans on the Instant simulated bench (instruments
+// take no time) without laser noise, over a repeated-settings axis (one GDD
+// repeated), so that the bench's model cache is hit and the daemon itself
+// (engine, store, gRPC) is what is measured.
+
+// quietBench is the Instant simulated bench without power noise.
+func quietBench(tb testing.TB) *drivers.Bench {
+	tb.Helper()
+	b, err := simbench.New(simbench.Options{Seed: 3, Instant: true, PowerNoiseRel: -1, MeterNoiseRel: -1})
+	if err != nil {
+		tb.Fatal(err)
+	}
+	b.TimeScale = 1e12
+	return b
+}
+
+func benchDaemon(tb testing.TB, cfg daemon.Config) (*daemon.Daemon, *client.Client) {
+	tb.Helper()
+	cfg.DataDir = tb.TempDir()
+	cfg.Listen = "127.0.0.1:0"
+	cfg.Logger = slog.New(slog.NewTextHandler(io.Discard, nil))
+	ctx := context.Background()
+	d, err := daemon.Start(ctx, cfg)
+	if err != nil {
+		tb.Fatal(err)
+	}
+	c, err := client.Dial(ctx, d.Addr())
+	if err != nil {
+		d.Stop(ctx)
+		tb.Fatal(err)
+	}
+	tb.Cleanup(func() {
+		c.Close()
+		sctx, cancel := context.WithTimeout(context.Background(), time.Minute)
+		defer cancel()
+		d.Stop(sctx)
+	})
+	return d, c
+}
+
+// repeatedSpec is n points at one GDD (the same optical state each time).
+func repeatedSpec(n uint32) *glissv1.ScanSpec {
+	return client.ChirpSpec(client.Range(5, 5, n), client.Options{GateMS: 100, Name: "repeated"})
+}
+
+// waitEnd polls a scan every 20 ms until it ends.
+func waitScanEnd(tb testing.TB, ctx context.Context, c *client.Client, id string) *glissv1.Scan {
+	tb.Helper()
+	for {
+		sc, err := c.Get(ctx, id)
+		if err != nil {
+			tb.Fatal(err)
+		}
+		if client.IsTerminal(sc.State) {
+			if sc.State != glissv1.ScanState_SCAN_STATE_SUCCEEDED {
+				tb.Fatalf("scan %s ended %v: %s", id, sc.State, sc.Reason)
+			}
+			return sc
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+}
+
+// scanRate is the scan's durable points/s, from its start to its end (the
+// end is recorded after the store has every point).
+func scanRate(sc *glissv1.Scan) float64 {
+	return float64(sc.PointsStored) / sc.FinishedAt.AsTime().Sub(sc.StartedAt.AsTime()).Seconds()
+}
+
+func medianOf(v []float64) float64 {
+	s := slices.Clone(v)
+	slices.Sort(s)
+	return s[len(s)/2]
+}
+
+// BenchmarkScanLoad: the same scan alone, then with 100 concurrent
+// watchers (over 10 connections), 10 clients polling GetScan every 10 ms
+// and one stalled watcher that never reads. Reports both scans' durable
+// points/s and their ratio (goal ≥ 0.9), and fails unless every watcher
+// received every point in order.
+//
+// "sim": the Instant simulated bench as glissd --sim-instant runs it (laser
+// noise on, so the bench computes the dot's response for every point): the
+// scan at the bench's full simulated speed. "quiet": noise off and one
+// setting repeated, the engine's own top speed (~100k points/s), where the
+// watchers' work (100 × every point, server and clients on the same 2
+// cores) far exceeds the scan's.
+func BenchmarkScanLoad(b *testing.B) {
+	for _, v := range []struct {
+		name  string
+		n     uint32
+		bench func(testing.TB) *drivers.Bench
+	}{
+		{"sim", 3000, func(tb testing.TB) *drivers.Bench {
+			bb, err := simbench.New(simbench.Options{Seed: 3, Instant: true})
+			if err != nil {
+				tb.Fatal(err)
+			}
+			bb.TimeScale = 1e12
+			return bb
+		}},
+		{"quiet", 20000, quietBench},
+	} {
+		b.Run(v.name, func(b *testing.B) { scanLoad(b, v.n, v.bench(b)) })
+	}
+}
+
+func scanLoad(b *testing.B, n uint32, bench *drivers.Bench) {
+	const watchers, conns, pollers = 100, 10, 10
+	d, c := benchDaemon(b, daemon.Config{Bench: bench})
+	ctx := context.Background()
+	// A varied spec (power × chirp), the same for both runs.
+	spec := func() *glissv1.ScanSpec {
+		if n == 3000 {
+			return client.MapSpec(client.Range(-20, 20, 60), client.Range(1, 100, 50), client.Options{GateMS: 100, Name: "load"})
+		}
+		return repeatedSpec(n)
+	}
+	var alone, loaded []float64
+	for i := 0; i < b.N; i++ {
+		sc, err := c.Submit(ctx, spec())
+		if err != nil {
+			b.Fatal(err)
+		}
+		alone = append(alone, scanRate(waitScanEnd(b, ctx, c, sc.Id)))
+
+		lctx, cancel := context.WithCancel(ctx)
+		var clients []*client.Client
+		for j := 0; j < conns; j++ {
+			cj, err := client.Dial(lctx, d.Addr())
+			if err != nil {
+				b.Fatal(err)
+			}
+			clients = append(clients, cj)
+		}
+		sc, err = c.Submit(ctx, spec())
+		if err != nil {
+			b.Fatal(err)
+		}
+		// The stalled watcher: its stream is open, it never reads.
+		if _, err := clients[0].Scans.WatchScan(lctx, &glissv1.WatchScanRequest{Id: sc.Id}); err != nil {
+			b.Fatal(err)
+		}
+		var wg sync.WaitGroup
+		got := make([]uint64, watchers)
+		bad := make([]string, watchers)
+		for w := 0; w < watchers; w++ {
+			wg.Add(1)
+			go func(w int) {
+				defer wg.Done()
+				var next uint64
+				for ev, err := range clients[w%conns].Watch(lctx, sc.Id, 0) {
+					if err != nil {
+						bad[w] = err.Error()
+						return
+					}
+					if p := ev.GetPoint(); p != nil {
+						if p.Seq != next && bad[w] == "" {
+							bad[w] = fmt.Sprintf("seq %d after %d", p.Seq, next)
+						}
+						next = p.Seq + 1
+						got[w]++
+					}
+				}
+			}(w)
+		}
+		pollCtx, stopPolls := context.WithCancel(lctx)
+		var pwg sync.WaitGroup
+		for p := 0; p < pollers; p++ {
+			pwg.Add(1)
+			go func(p int) {
+				defer pwg.Done()
+				t := time.NewTicker(10 * time.Millisecond)
+				defer t.Stop()
+				for {
+					select {
+					case <-pollCtx.Done():
+						return
+					case <-t.C:
+						_, _ = clients[p%conns].Get(pollCtx, sc.Id)
+					}
+				}
+			}(p)
+		}
+		loaded = append(loaded, scanRate(waitScanEnd(b, ctx, c, sc.Id)))
+		stopPolls()
+		pwg.Wait()
+		wg.Wait()
+		cancel()
+		for _, cj := range clients {
+			cj.Close()
+		}
+		for w := range watchers {
+			if got[w] != uint64(n) || bad[w] != "" {
+				b.Fatalf("watcher %d received %d of %d points (%s)", w, got[w], n, bad[w])
+			}
+		}
+	}
+	a, l := medianOf(alone), medianOf(loaded)
+	b.ReportMetric(a, "points/s_alone")
+	b.ReportMetric(l, "points/s_loaded")
+	b.ReportMetric(l/a, "loaded/alone")
+	b.ReportMetric(0, "ns/op")
+}
+
+// BenchmarkPointLatency: 10 watchers follow a scan; the latency of a point
+// is from its finish (Point.finished_at, stamped by the engine when the
+// counter's gate has been read, before the point is queued for the store)
+// to its receipt by a watcher, so it includes the store's commit and fsync.
+// Reports median and p99 over every point of every watcher (goal p99 ≤ 5 ms).
+// "instant": points as fast as the engine makes them; "1kHz": a 1 ms gate on
+// a real-time simulated bench (a fast lab scan).
+func BenchmarkPointLatency(b *testing.B) {
+	for _, pace := range []string{"instant", "1kHz"} {
+		b.Run(pace, func(b *testing.B) {
+			bench := quietBench(b)
+			n, gate := uint32(20000), 100.0
+			if pace == "1kHz" {
+				var err error
+				bench, err = simbench.New(simbench.Options{Seed: 3, PowerNoiseRel: -1, MeterNoiseRel: -1})
+				if err != nil {
+					b.Fatal(err)
+				}
+				n, gate = 2000, 1
+			}
+			_, c := benchDaemon(b, daemon.Config{Bench: bench})
+			ctx := context.Background()
+			var lat []float64
+			var mu sync.Mutex
+			for i := 0; i < b.N; i++ {
+				// The stage goes to the scan's GDD first, so the first point's move is not counted.
+				spec := client.ChirpSpec(client.Range(5, 5, n), client.Options{GateMS: gate})
+				warm, err := c.Submit(ctx, client.ChirpSpec(client.Range(5, 5, 1), client.Options{GateMS: gate}))
+				if err != nil {
+					b.Fatal(err)
+				}
+				waitScanEnd(b, ctx, c, warm.Id)
+				sc, err := c.Submit(ctx, spec)
+				if err != nil {
+					b.Fatal(err)
+				}
+				var wg sync.WaitGroup
+				for w := 0; w < 10; w++ {
+					wg.Add(1)
+					go func() {
+						defer wg.Done()
+						var mine []float64
+						for ev, err := range c.Watch(ctx, sc.Id, 0) {
+							if err != nil {
+								b.Error(err)
+								return
+							}
+							if p := ev.GetPoint(); p != nil {
+								mine = append(mine, float64(time.Since(p.FinishedAt.AsTime()))/float64(time.Millisecond))
+							}
+						}
+						if len(mine) != int(n) {
+							b.Errorf("watcher received %d of %d points", len(mine), n)
+						}
+						mu.Lock()
+						lat = append(lat, mine...)
+						mu.Unlock()
+					}()
+				}
+				wg.Wait()
+			}
+			slices.Sort(lat)
+			b.ReportMetric(lat[len(lat)/2], "ms_p50")
+			b.ReportMetric(lat[len(lat)*99/100], "ms_p99")
+			b.ReportMetric(0, "ns/op")
+		})
+	}
+}
+
+// BenchmarkDurableThroughput: durable points/s through the whole engine
+// (instruments, engine, store group commit, fsync) beside raw bbolt
+// writing records of the same size in one transaction per 256 and per
+// 4096 records (the store's largest batch). Goals: ≥ 5,000 points/s and
+// ≥ 0.7 × raw.
+func BenchmarkDurableThroughput(b *testing.B) {
+	const n = 50000
+	_, c := benchDaemon(b, daemon.Config{Bench: quietBench(b)})
+	ctx := context.Background()
+	var rates []float64
+	var recordBytes int
+	for i := 0; i < b.N; i++ {
+		sc, err := c.Submit(ctx, repeatedSpec(n))
+		if err != nil {
+			b.Fatal(err)
+		}
+		done := waitScanEnd(b, ctx, c, sc.Id)
+		rates = append(rates, scanRate(done))
+		for p, err := range c.Points(ctx, sc.Id, n/2) {
+			if err != nil {
+				b.Fatal(err)
+			}
+			recordBytes = proto.Size(p)
+			break
+		}
+	}
+	raw256 := rawBolt(b, n, recordBytes, 256)
+	raw4096 := rawBolt(b, n, recordBytes, 4096)
+	e := medianOf(rates)
+	b.ReportMetric(e, "points/s_engine")
+	b.ReportMetric(raw256, "records/s_bbolt256")
+	b.ReportMetric(raw4096, "records/s_bbolt4096")
+	b.ReportMetric(e/raw256, "engine/bbolt256")
+	b.ReportMetric(e/raw4096, "engine/bbolt4096")
+	b.ReportMetric(float64(recordBytes), "bytes/point")
+	b.ReportMetric(0, "ns/op")
+}
+
+// rawBolt writes n records of size bytes under big-endian sequence keys, in
+// transactions of batch records, each committed with fsync; records/s.
+func rawBolt(b *testing.B, n, size, batch int) float64 {
+	db, err := bolt.Open(filepath.Join(b.TempDir(), "raw.db"), 0o600, nil)
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer db.Close()
+	val := make([]byte, size)
+	for i := range val {
+		val[i] = byte(i * 7)
+	}
+	start := time.Now()
+	for done := 0; done < n; {
+		err := db.Update(func(tx *bolt.Tx) error {
+			bk, err := tx.CreateBucketIfNotExists([]byte("points"))
+			if err != nil {
+				return err
+			}
+			for j := 0; j < batch && done < n; j++ {
+				var k [8]byte
+				binary.BigEndian.PutUint64(k[:], uint64(done))
+				if err := bk.Put(k[:], val); err != nil {
+					return err
+				}
+				done++
+			}
+			return nil
+		})
+		if err != nil {
+			b.Fatal(err)
+		}
+	}
+	return float64(n) / time.Since(start).Seconds()
+}
+
+// BenchmarkDaemonRSS: the resident memory (VmRSS) of a glissd subprocess
+// after storing a 100,000-point scan and exporting it as CSV through the
+// client. Goal ≤ 100 MB.
+func BenchmarkDaemonRSS(b *testing.B) {
+	tmp := b.TempDir()
+	bin := buildGlissd(b, tmp)
+	for i := 0; i < b.N; i++ {
+		func() {
+			p := startGlissd(b, bin, "--listen", "127.0.0.1:0", "--data", filepath.Join(tmp, fmt.Sprint("data", i)), "--sim-instant", "--sim-quiet", "--log-level", "warn")
+			defer func() {
+				p.cmd.Process.Signal(syscall.SIGTERM)
+				<-p.done
+			}()
+			ctx := context.Background()
+			c, err := client.Dial(ctx, p.addr, client.WithHealthTimeout(10*time.Second))
+			if err != nil {
+				b.Fatal(err)
+			}
+			defer c.Close()
+			sc, err := c.Submit(ctx, repeatedSpec(100000))
+			if err != nil {
+				b.Fatal(err)
+			}
+			sc = waitScanEnd(b, ctx, c, sc.Id)
+			rows, err := client.WriteCSV(io.Discard, sc, c.Points(ctx, sc.Id, 0))
+			if err != nil || rows != 100000 {
+				b.Fatalf("export: %d rows, %v", rows, err)
+			}
+			kb, err := vmRSSKiB(p.cmd.Process.Pid)
+			if err != nil {
+				b.Fatal(err)
+			}
+			b.ReportMetric(float64(kb)/1024, "MiB_VmRSS")
+		}()
+	}
+	b.ReportMetric(0, "ns/op")
+}
+
+func vmRSSKiB(pid int) (int, error) {
+	f, err := os.Open(fmt.Sprintf("/proc/%d/status", pid))
+	if err != nil {
+		return 0, err
+	}
+	defer f.Close()
+	sc := bufio.NewScanner(f)
+	for sc.Scan() {
+		if rest, ok := strings.CutPrefix(sc.Text(), "VmRSS:"); ok {
+			return strconv.Atoi(strings.TrimSuffix(strings.TrimSpace(rest), " kB"))
+		}
+	}
+	return 0, fmt.Errorf("no VmRSS in /proc/%d/status", pid)
+}
