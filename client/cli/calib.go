@@ -13,6 +13,7 @@ import (
 	"strconv"
 	"strings"
 
+	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
 	"github.com/gliss-lab/gliss/drivers/calib"
 )
 
@@ -349,5 +350,272 @@ func runCalibStretcherFit(ctx context.Context, env *Env, args []string) error {
 	fmt.Fprintf(env.Stdout, "  k        %.6g ± %.2g ps²/mm (sign not given by durations)\n  x0       %.6g ± %.2g mm\n  TL FWHM  %.5g ± %.2g ps\n",
 		f.SlopePS2PerMM, f.SigmaSlopePS2PerMM, f.ZeroMM, f.SigmaZeroMM, f.TLFWHMPS, f.SigmaTLFWHMPS)
 	fmt.Fprintf(env.Stdout, "residuals: rms %.3g ps, max %.3g ps (dof %d)\n", f.RMS, f.MaxAbs, f.DoF)
+	return nil
+}
+
+// The calibration commands below talk to glissd's CalibrationService: the
+// bench's calibration versions and the procedures that make new ones.
+func init() {
+	register("calib", calibSummary, &Command{
+		Name: "show", Summary: "show the daemon bench's calibration set in use (or one version)",
+		Usage:   "[--version N] [--json]",
+		Example: "gliss calib show\ngliss calib show --version 0 --json",
+		Run:     runCalibShow,
+	})
+	register("calib", calibSummary, &Command{
+		Name: "list", Summary: "list the daemon bench's calibration versions, newest first",
+		Usage:   "[--json]",
+		Example: "gliss calib list",
+		Run:     runCalibList,
+	})
+	register("calib", calibSummary, &Command{
+		Name: "put", Summary: "store a new calibration version from JSON parts (stretcher, attenuator, pulse_area)",
+		Usage:   "--set FILE|- [--note TEXT]",
+		Example: "echo '{\"pulse_area\":{\"area_pi_per_sqrt_uw\":0.98}}' | gliss calib put --set - --note \"from the Rabi scan of Tuesday\"",
+		Run:     runCalibPut,
+	})
+	register("calib", calibSummary, &Command{
+		Name: "attenuator-run", Summary: "sweep the attenuator, read the power meter, fit the law and store it (refused while a scan runs)",
+		Usage:   "[--from-deg A] [--to-deg B] [--count N] [--law malus|nd] [--settle-ms T] [--note TEXT] [--dry-run] [--json]",
+		Example: "gliss calib attenuator-run --from-deg 0 --to-deg 90 --count 46",
+		Run:     runCalibAttenuatorRun,
+	})
+	register("calib", calibSummary, &Command{
+		Name: "pulse-area", Summary: "fit the pulse-area calibration to a stored zero-chirp power sweep and store it",
+		Usage:   "--from-scan ID [--channel xx] [--max-area-pi A] [--phonons-k T] [--note TEXT] [--dry-run] [--json]",
+		Example: "gliss scan power --power-uw 0.05:40:40 --spacing amplitude --gdd-ps2 0 --watch\ngliss calib pulse-area --from-scan 20261202T014129.417Z-68ed14 --phonons-k 4.2",
+		Run:     runCalibPulseArea,
+	})
+}
+
+func calibClient(ctx context.Context, server string) (glissv1.CalibrationServiceClient, func() error, error) {
+	cl, err := dial(ctx, server)
+	if err != nil {
+		return nil, nil, err
+	}
+	return glissv1.NewCalibrationServiceClient(cl.Conn()), cl.Close, nil
+}
+
+// printCalibRecord prints a record: its header, then the set's JSON.
+func printCalibRecord(w io.Writer, rec *glissv1.CalibrationRecord) {
+	created := "nominal (bench file or simulated bench)"
+	if rec.GetCreatedAt() != nil {
+		created = rec.GetCreatedAt().AsTime().Local().Format("2006-01-02 15:04:05")
+	}
+	fmt.Fprintf(w, "bench     %s\nversion   %d\ncreated   %s\nnote      %s\n%s", rec.GetBench(), rec.GetVersion(), created, rec.GetNote(), rec.GetSetJson())
+	if !strings.HasSuffix(rec.GetSetJson(), "\n") {
+		fmt.Fprintln(w)
+	}
+}
+
+func runCalibShow(ctx context.Context, env *Env, args []string) error {
+	c := groups["calib"].Commands["show"]
+	fs := NewFlagSet(env, "calib", c)
+	server := serverFlag(fs, env)
+	version := fs.Int("version", -1, "version to show (0: the nominal set; default: the set in use)")
+	asJSON := fs.Bool("json", false, "print the record as protobuf JSON")
+	if err := Parse(fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() > 0 {
+		return Usagef("%s: unexpected argument %q", fs.Name(), fs.Arg(0))
+	}
+	req := &glissv1.GetCalibrationRequest{}
+	if calibFlagGiven(fs, "version") {
+		if *version < 0 || *version > math.MaxUint32 {
+			return Usagef("%s: --version %d is out of range: allowed 0 to %d", fs.Name(), *version, uint32(math.MaxUint32))
+		}
+		v := uint32(*version)
+		req.Version = &v
+	}
+	cs, done, err := calibClient(ctx, *server)
+	if err != nil {
+		return err
+	}
+	defer done()
+	rec, err := cs.GetCalibration(ctx, req)
+	if err != nil {
+		return rpcError(err, nil)
+	}
+	if *asJSON {
+		return printProtoJSON(env.Stdout, rec)
+	}
+	printCalibRecord(env.Stdout, rec)
+	return nil
+}
+
+func runCalibList(ctx context.Context, env *Env, args []string) error {
+	c := groups["calib"].Commands["list"]
+	fs := NewFlagSet(env, "calib", c)
+	server := serverFlag(fs, env)
+	asJSON := fs.Bool("json", false, "print the list as protobuf JSON")
+	if err := Parse(fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() > 0 {
+		return Usagef("%s: unexpected argument %q", fs.Name(), fs.Arg(0))
+	}
+	cs, done, err := calibClient(ctx, *server)
+	if err != nil {
+		return err
+	}
+	defer done()
+	res, err := cs.ListCalibrations(ctx, &glissv1.ListCalibrationsRequest{})
+	if err != nil {
+		return rpcError(err, nil)
+	}
+	if *asJSON {
+		return printProtoJSON(env.Stdout, res)
+	}
+	for _, r := range res.Calibrations {
+		mark := " "
+		if r.Version == res.CurrentVersion {
+			mark = "*"
+		}
+		created := "nominal"
+		if r.GetCreatedAt() != nil {
+			created = r.GetCreatedAt().AsTime().Local().Format("2006-01-02 15:04:05")
+		}
+		fmt.Fprintf(env.Stdout, "%s %4d  %-19s  %s\n", mark, r.Version, created, r.Note)
+	}
+	return nil
+}
+
+func runCalibPut(ctx context.Context, env *Env, args []string) error {
+	c := groups["calib"].Commands["put"]
+	fs := NewFlagSet(env, "calib", c)
+	server := serverFlag(fs, env)
+	set := fs.String("set", "", "JSON file with the parts to change (- for stdin); required")
+	note := fs.String("note", "", "how the numbers were obtained (≤ 2000 characters)")
+	if err := Parse(fs, args); err != nil {
+		return err
+	}
+	if *set == "" {
+		return Usagef("%s: --set FILE is required (- for stdin)", fs.Name())
+	}
+	var r io.Reader = env.Stdin
+	if *set != "-" {
+		f, err := os.Open(*set)
+		if err != nil {
+			return Usagef("%s: --set %s: %v", fs.Name(), *set, err)
+		}
+		defer f.Close()
+		r = f
+	}
+	b, err := io.ReadAll(io.LimitReader(r, 1<<20+1))
+	if err != nil {
+		return fmt.Errorf("--set %s: %w", *set, err)
+	}
+	cs, done, err := calibClient(ctx, *server)
+	if err != nil {
+		return err
+	}
+	defer done()
+	rec, err := cs.PutCalibration(ctx, &glissv1.PutCalibrationRequest{SetJson: string(b), Note: *note})
+	if err != nil {
+		return rpcError(err, map[string]string{"set_json": "--set", "note": "--note"})
+	}
+	fmt.Fprintf(env.Stdout, "stored version %d of bench %s\n", rec.Version, rec.Bench)
+	return nil
+}
+
+func runCalibAttenuatorRun(ctx context.Context, env *Env, args []string) error {
+	c := groups["calib"].Commands["attenuator-run"]
+	fs := NewFlagSet(env, "calib", c)
+	server := serverFlag(fs, env)
+	from := fs.Float64("from-deg", 0, "first angle, deg")
+	to := fs.Float64("to-deg", 90, "last angle, deg")
+	count := fs.Int("count", 46, "number of readings (4 to 1000)")
+	law := fs.String("law", "malus", "law to fit: malus (half-wave plate and polariser) or nd (graded ND wheel)")
+	settle := fs.Float64("settle-ms", 0, "wait after each move before reading, ms")
+	note := fs.String("note", "", "note stored with the new version")
+	dry := fs.Bool("dry-run", false, "fit and report only; store nothing")
+	asJSON := fs.Bool("json", false, "print the result as protobuf JSON")
+	if err := Parse(fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() > 0 {
+		return Usagef("%s: unexpected argument %q", fs.Name(), fs.Arg(0))
+	}
+	if *count < 4 || *count > 1000 {
+		return Usagef("%s: --count %d is out of range: allowed 4 to 1000", fs.Name(), *count)
+	}
+	req := &glissv1.RunAttenuatorCalibrationRequest{FromDeg: *from, ToDeg: *to, Count: uint32(*count), SettleMs: *settle, Note: *note, DryRun: *dry}
+	switch *law {
+	case "malus":
+		req.Law = glissv1.AttenuatorLaw_ATTENUATOR_LAW_MALUS
+	case "nd":
+		req.Law = glissv1.AttenuatorLaw_ATTENUATOR_LAW_ND_WHEEL
+	default:
+		return Usagef("%s: --law %q: want malus or nd", fs.Name(), *law)
+	}
+	cs, done, err := calibClient(ctx, *server)
+	if err != nil {
+		return err
+	}
+	defer done()
+	res, err := cs.RunAttenuatorCalibration(ctx, req)
+	if err != nil {
+		return rpcError(err, map[string]string{"from_deg": "--from-deg", "to_deg": "--to-deg", "count": "--count", "settle_ms": "--settle-ms", "law": "--law", "note": "--note"})
+	}
+	if *asJSON {
+		return printProtoJSON(env.Stdout, res)
+	}
+	w := env.Stdout
+	fmt.Fprintf(w, "%d readings %g–%g°: rms residual %.4g µW, max %.4g µW\n", len(res.AnglesDeg), *from, *to, res.RmsResidualUw, res.MaxResidualUw)
+	fmt.Fprintf(w, "fit  %s\n", res.FitJson)
+	if *dry {
+		fmt.Fprintln(w, "dry run: nothing stored")
+	} else {
+		fmt.Fprintf(w, "stored version %d of bench %s\n", res.GetCalibration().GetVersion(), res.GetCalibration().GetBench())
+	}
+	return nil
+}
+
+func runCalibPulseArea(ctx context.Context, env *Env, args []string) error {
+	c := groups["calib"].Commands["pulse-area"]
+	fs := NewFlagSet(env, "calib", c)
+	server := serverFlag(fs, env)
+	scan := fs.String("from-scan", "", "id of a stored power sweep at zero chirp; required")
+	channel := fs.String("channel", "xx", "counter channel of the biexciton line")
+	maxArea := fs.Float64("max-area-pi", 10, "largest pulse area the fit considers, π (1 to 40)")
+	mf := addModelFlags(fs)
+	note := fs.String("note", "", "note stored with the new version")
+	dry := fs.Bool("dry-run", false, "fit and report only; store nothing")
+	asJSON := fs.Bool("json", false, "print the result as protobuf JSON")
+	if err := Parse(fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() > 0 {
+		return Usagef("%s: unexpected argument %q", fs.Name(), fs.Arg(0))
+	}
+	if *scan == "" {
+		return Usagef("%s: --from-scan ID is required (gliss scan list shows them)", fs.Name())
+	}
+	if err := calibInRange(fs, "max-area-pi", *maxArea, 1, 40, " π"); err != nil {
+		return err
+	}
+	req := &glissv1.CalibratePulseAreaRequest{ScanId: *scan, Channel: *channel, MaxAreaPi: *maxArea, Note: *note, DryRun: *dry, Phonons: mf.phonons()}
+	dm := mf.model()
+	req.BindingMev, req.DetuningMev = dm.BindingMev, dm.DetuningMev
+	cs, done, err := calibClient(ctx, *server)
+	if err != nil {
+		return err
+	}
+	defer done()
+	res, err := cs.CalibratePulseArea(ctx, req)
+	if err != nil {
+		return rpcError(err, map[string]string{"scan_id": "--from-scan", "channel": "--channel", "max_area_pi": "--max-area-pi", "phonons": "--phonons-k", "fwhm_ps": "--binding-mev/--detuning-mev"})
+	}
+	if *asJSON {
+		return printProtoJSON(env.Stdout, res)
+	}
+	w := env.Stdout
+	fmt.Fprintf(w, "π pulse      %.5g ± %.2g µW\nscale        %.6g ± %.2g π/√µW\nχ²/DoF       %.3g\n", res.PiPowerUw, res.SigmaPiPowerUw, res.AreaPiPerSqrtUw, res.SigmaAreaPiPerSqrtUw, res.RedChiSq)
+	if *dry {
+		fmt.Fprintln(w, "dry run: nothing stored")
+	} else {
+		fmt.Fprintf(w, "stored version %d of bench %s\n", res.GetCalibration().GetVersion(), res.GetCalibration().GetBench())
+	}
 	return nil
 }
