@@ -86,7 +86,8 @@ type Options struct {
 	// demo dot's phonons, phonon.DemoBath(); a bath with AlphaPS2 0 means no
 	// phonons (the counter then solves the plain dot model, bit for bit).
 	// Its TemperatureK is ignored: the phonons are at the sample temperature
-	// of the cryostat (Cryostat), rounded to 0.01 K.
+	// of the cryostat (Cryostat), rounded to 0.01 K, or at the setpoint once
+	// a stability wait has succeeded (Thermometer.WaitStableK).
 	Bath *phonon.Bath
 	// Cryostat configures the sample's cryostat (zero value:
 	// cryostat.Demo(), 1.5–300 K starting at 4.2 K, τ 60 s). Its Speed,

@@ -1,6 +1,8 @@
 // Package cryostat is a simulated cryostat temperature controller: the
 // thermometer role of package drivers (TemperatureK, SetSetpointK, Close) plus
-// Identify, and a WaitStable helper for setpoint changes.
+// Identify, the drivers.Stabilizer wait (WaitStableK) and a WaitStable helper
+// for setpoint changes. sim/bench puts one on the simulated bench, where
+// the counter's phonons follow its sample temperature.
 //
 // The sample temperature approaches the setpoint to first order,
 //
