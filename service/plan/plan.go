@@ -173,7 +173,10 @@ func instrumentOf(k glissv1.AxisKind) string {
 }
 
 // New validates spec against the bench and expands it. The error is *Invalid
-// when the spec is at fault; it lists every bad field.
+// when the spec is at fault; it lists every bad field. The plan takes the
+// bench's calibration in use once (drivers.Bench.CurrentCalibration, safe
+// against a concurrent SetCalibration) and keeps it: a calibration put
+// later changes new plans only.
 func New(spec *glissv1.ScanSpec, b *drivers.Bench) (*Plan, error) {
 	inv := &Invalid{}
 	if spec == nil {

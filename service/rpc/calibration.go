@@ -4,6 +4,8 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
+	"errors"
+	"io"
 	"fmt"
 	"math"
 	"sync"
@@ -134,14 +136,9 @@ func (c *Calibrations) PutCalibration(ctx context.Context, req *glissv1.PutCalib
 	if len(req.GetSetJson()) > maxPutBytes {
 		return nil, invalidField("set_json", "%d bytes: allowed ≤ %d", len(req.GetSetJson()), maxPutBytes)
 	}
-	dec := json.NewDecoder(bytes.NewReader([]byte(req.GetSetJson())))
-	dec.DisallowUnknownFields()
-	var p setPatch
-	if err := dec.Decode(&p); err != nil {
-		return nil, invalidField("set_json", "not a calibration set: %v (keys: stretcher, attenuator, pulse_area)", err)
-	}
-	if dec.More() {
-		return nil, invalidField("set_json", "trailing data after the JSON object")
+	p, err := decodeSetPatch([]byte(req.GetSetJson()))
+	if err != nil {
+		return nil, invalidField("set_json", "%v", err)
 	}
 	if p.Stretcher == nil && p.Attenuator == nil && p.PulseArea == nil {
 		return nil, invalidField("set_json", "no calibration given: set one or more of stretcher, attenuator, pulse_area")
@@ -177,6 +174,21 @@ func (c *Calibrations) PutCalibration(ctx context.Context, req *glissv1.PutCalib
 			s.PulseArea = p.PulseArea
 		}
 	}, req.GetNote())
+}
+
+// decodeSetPatch reads the parts of a calibration set a client puts: one
+// JSON object of the calib.Set keys, no unknown keys, no trailing data.
+func decodeSetPatch(b []byte) (setPatch, error) {
+	dec := json.NewDecoder(bytes.NewReader(b))
+	dec.DisallowUnknownFields()
+	var p setPatch
+	if err := dec.Decode(&p); err != nil {
+		return setPatch{}, fmt.Errorf("not a calibration set: %v (keys: stretcher, attenuator, pulse_area)", err)
+	}
+	if _, err := dec.Token(); err != io.EOF {
+		return setPatch{}, errors.New("trailing data after the JSON object")
+	}
+	return p, nil
 }
 
 func invalidFields(fields []string, errs []error) error {
