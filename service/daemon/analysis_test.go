@@ -333,6 +333,32 @@ func TestReplayCompareAnalyse(t *testing.T) {
 		t.Errorf("plateau ranges: zero chirp %g µW, best %g µW", z.RangeUw, b.RangeUw)
 	}
 
+	// Model fit of the whole map with the bench's phonons: recovers the
+	// simulated dot (sim/bench truth: area scale 1 π/√µW, E_B 4.1 meV,
+	// detuning 0, PHYSICS.md demo dot) within 3σ.
+	demo := phonon.DemoBath()
+	t0 := time.Now()
+	fitRep, err := an.AnalyseScan(ctx, &glissv1.AnalyseScanRequest{Id: orig.Id, Fit: true, Model: &glissv1.DotModel{
+		AreaPiPerSqrtUw: new(1.03), BindingMev: new(4.0), DetuningMev: new(0.02),
+		Phonons: &glissv1.Phonons{AlphaPs2: demo.AlphaPS2, CutoffMev: demo.CutoffMeV, TemperatureK: demo.TemperatureK}}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	fp, fs := fitRep.Fit.Params, fitRep.Fit.Sigma
+	t.Logf("map fit (%v): area %.5f ± %.5f, E_B %.4f ± %.4f meV, Δ %.4f ± %.4f meV, A %.1f ± %.1f, B %.1f ± %.1f, χ²/DoF %.2f, %d iterations",
+		time.Since(t0), fp.AreaPiPerSqrtUw, fs.AreaPiPerSqrtUw, fp.BindingMev, fs.BindingMev, fp.DetuningMev, fs.DetuningMev, fp.AmplitudeCounts, fs.AmplitudeCounts, fp.BackgroundCounts, fs.BackgroundCounts, fitRep.Fit.RedChiSq, fitRep.Fit.Iterations)
+	for _, c := range []struct {
+		name         string
+		got, sd, tru float64
+	}{{"area scale", fp.AreaPiPerSqrtUw, fs.AreaPiPerSqrtUw, 1}, {"binding", fp.BindingMev, fs.BindingMev, 4.1}, {"detuning", fp.DetuningMev, fs.DetuningMev, 0}} {
+		if !(c.sd > 0) || math.Abs(c.got-c.tru) > 3*c.sd {
+			t.Errorf("fitted %s %g ± %g, true %g", c.name, c.got, c.sd, c.tru)
+		}
+	}
+	if len(fitRep.Fit.Residuals) != 3 || len(fitRep.Fit.Residuals[0].Values) != 24 {
+		t.Errorf("residual map %d rows", len(fitRep.Fit.Residuals))
+	}
+
 	// Theory map in the scan's axes: at the zero-chirp π pulse the model
 	// yield is the demo dot's (sim/model), whatever the counts.
 	th, err := an.TheoryMap(ctx, &glissv1.TheoryMapRequest{Id: orig.Id, Model: &glissv1.DotModel{AreaPiPerSqrtUw: new(1.0)}})
