@@ -142,7 +142,7 @@ func ExampleWriteCSV() {
 	fmt.Println(strings.SplitN(b.String(), "\n", 2)[0])
 	// Output:
 	// 3 points
-	// seq,gdd_ps2,stage_mm,power_uw,angle_deg,measured_power_uw,counts_x,counts_xx,gate_ms,started_at,finished_at
+	// seq,gdd_ps2,stage_mm,power_uw,angle_deg,measured_power_uw,measured_temperature_k,counts_x,counts_xx,gate_ms,started_at,finished_at
 }
 
 // WriteNPY saves a scan as NumPy arrays: the axis vectors and one array of

@@ -61,7 +61,8 @@ func commandedUsed(sc *glissv1.Scan) map[string]bool {
 
 // CSVHeader is the header of a scan's CSV export: seq, one column per axis
 // in its unit, the other commanded quantities (physical and raw units),
-// measured_power_uw, counts per channel, gate_ms, started_at, finished_at.
+// measured_power_uw, measured_temperature_k (empty without a thermometer),
+// counts per channel, gate_ms, started_at, finished_at.
 func CSVHeader(sc *glissv1.Scan) []string {
 	h := []string{"seq"}
 	have := map[string]bool{}
@@ -76,7 +77,7 @@ func CSVHeader(sc *glissv1.Scan) []string {
 			h = append(h, c.name)
 		}
 	}
-	h = append(h, "measured_power_uw")
+	h = append(h, "measured_power_uw", "measured_temperature_k")
 	for _, ch := range sc.GetChannels() {
 		h = append(h, "counts_"+ch)
 	}
@@ -121,7 +122,7 @@ func CSVRow(sc *glissv1.Scan, p *glissv1.Point) []string {
 			row = append(row, fmtOpt(c.get(cmd)))
 		}
 	}
-	row = append(row, fmtOpt(p.MeasuredPowerUw))
+	row = append(row, fmtOpt(p.MeasuredPowerUw), fmtOpt(p.TemperatureK))
 	for i := range sc.GetChannels() {
 		v := ""
 		if i < len(p.GetCounts()) {
