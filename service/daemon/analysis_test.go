@@ -381,3 +381,56 @@ func TestReplayCompareAnalyse(t *testing.T) {
 		t.Errorf("theory map without an area scale: %v", err)
 	}
 }
+
+// TestReplayUsesRecordedCalibration: a scan planned with calibration
+// version 1 replays with version 1 even after version 2 is in use: the
+// same angles are commanded and the counts are identical.
+func TestReplayUsesRecordedCalibration(t *testing.T) {
+	_, c := startDaemon(t, daemon.Config{SimInstant: true, SimSeed: 31})
+	ctx, cancel := context.WithTimeout(context.Background(), time.Minute)
+	defer cancel()
+	cs := glissv1.NewCalibrationServiceClient(c.Conn())
+	an := glissv1.NewAnalysisServiceClient(c.Conn())
+	// An attenuator law 3° off the truth (invented numbers).
+	if _, err := cs.PutCalibration(ctx, &glissv1.PutCalibrationRequest{SetJson: `{"attenuator":{"malus":{"p_min_uw":0.05,"p_max_uw":190,"theta0_deg":3}}}`}); err != nil {
+		t.Fatal(err)
+	}
+	spec := client.PowerSpec(client.Range(1, 100, 8), client.Options{GateMS: 50, Fixed: []*glissv1.Setpoint{client.Fixed(glissv1.AxisKind_AXIS_KIND_GDD_PS2, 5)}})
+	orig, err := c.Submit(ctx, spec)
+	if err != nil {
+		t.Fatal(err)
+	}
+	waitEnd(t, ctx, c, orig.Id)
+	if _, err := cs.PutCalibration(ctx, &glissv1.PutCalibrationRequest{SetJson: `{"attenuator":{"malus":{"p_min_uw":0.05,"p_max_uw":200,"theta0_deg":0}}}`}); err != nil {
+		t.Fatal(err)
+	}
+	r, err := an.ReplayScan(ctx, &glissv1.ReplayScanRequest{Id: orig.Id})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.Scan.GetCalibration().GetVersion() != 1 {
+		t.Errorf("replay records calibration version %d, want 1", r.Scan.GetCalibration().GetVersion())
+	}
+	waitEnd(t, ctx, c, r.Scan.Id)
+	pa, pb := points(t, ctx, c, orig.Id), points(t, ctx, c, r.Scan.Id)
+	if len(pa) != 8 || len(pb) != 8 {
+		t.Fatalf("%d and %d points", len(pa), len(pb))
+	}
+	for i := range pa {
+		if pa[i].Commanded.GetAngleDeg() != pb[i].Commanded.GetAngleDeg() || !slices.Equal(pa[i].Counts, pb[i].Counts) {
+			t.Errorf("point %d: angle %g° counts %v, replay %g° counts %v", i, pa[i].Commanded.GetAngleDeg(), pa[i].Counts, pb[i].Commanded.GetAngleDeg(), pb[i].Counts)
+		}
+	}
+	// A new scan now uses version 2: other angles for the same powers.
+	sc, err := c.Submit(ctx, spec)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if sc.GetCalibration().GetVersion() != 2 {
+		t.Errorf("new scan records version %d, want 2", sc.GetCalibration().GetVersion())
+	}
+	waitEnd(t, ctx, c, sc.Id)
+	if pc := points(t, ctx, c, sc.Id); pc[0].Commanded.GetAngleDeg() == pa[0].Commanded.GetAngleDeg() {
+		t.Errorf("version 2 commands the same angle %g° as version 1", pc[0].Commanded.GetAngleDeg())
+	}
+}
