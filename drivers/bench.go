@@ -248,12 +248,17 @@ func (b *Bench) Close() error {
 }
 
 // Set returns c as a calibration set (schema SetSchema, c.Version; Created
-// and Note left for the caller).
+// and Note left for the caller). A part that does not validate (a bench
+// without a stage has no stretcher) is left out.
 func (c Calibration) Set() calib.Set {
-	st := c.Stretcher
-	law := c.AttenuatorLaw()
-	s := calib.Set{Schema: calib.SetSchema, Version: c.Version, Stretcher: &st, Attenuator: &law}
-	if c.PulseArea != nil {
+	s := calib.Set{Schema: calib.SetSchema, Version: c.Version}
+	if st := c.Stretcher; st.Validate() == nil {
+		s.Stretcher = &st
+	}
+	if law := c.AttenuatorLaw(); law.Validate() == nil {
+		s.Attenuator = &law
+	}
+	if c.PulseArea != nil && c.PulseArea.Validate() == nil {
 		pa := *c.PulseArea
 		s.PulseArea = &pa
 	}
