@@ -43,7 +43,10 @@ func registerServices(ctx context.Context, srv *grpc.Server, eng *engine.Engine,
 	if log == nil {
 		log = slog.Default()
 	}
-	rp := &replayer{store: st, log: log, runs: map[string]context.CancelFunc{}}
+	// A simulated daemon's own noise settings carry over to its replays
+	// (the scan record does not say whether the noise was off).
+	quiet := cfg.BenchFile == "" && cfg.SimQuiet
+	rp := &replayer{store: st, log: log, quiet: quiet, runs: map[string]context.CancelFunc{}}
 	glissv1.RegisterAnalysisServiceServer(srv, &rpc.Analysis{Store: st, Replay: rp.replay})
 	return []func(context.Context) error{rp.stop}, nil
 }
@@ -59,6 +62,7 @@ func registerServices(ctx context.Context, srv *grpc.Server, eng *engine.Engine,
 type replayer struct {
 	store *store.Store
 	log   *slog.Logger
+	quiet bool // simulated laser and power meter without noise (glissd --sim-quiet)
 
 	mu      sync.Mutex
 	runs    map[string]context.CancelFunc // live replays by new scan id
@@ -70,7 +74,11 @@ type replayer struct {
 const replayPoll = 20 * time.Millisecond
 
 func (r *replayer) replay(ctx context.Context, orig *glissv1.Scan) (*glissv1.Scan, error) {
-	b, err := simbench.New(simbench.Options{Seed: orig.GetSimSeed(), Instant: true})
+	o := simbench.Options{Seed: orig.GetSimSeed(), Instant: true}
+	if r.quiet {
+		o.PowerNoiseRel, o.MeterNoiseRel = -1, -1
+	}
+	b, err := simbench.New(o)
 	if err != nil {
 		return nil, fmt.Errorf("replay of %s: simulated bench: %w", orig.GetId(), err)
 	}
