@@ -612,6 +612,9 @@ func runCalibPulseArea(ctx context.Context, env *Env, args []string) error {
 	}
 	w := env.Stdout
 	fmt.Fprintf(w, "π pulse      %.5g ± %.2g µW\nscale        %.6g ± %.2g π/√µW\nχ²/DoF       %.3g\n", res.PiPowerUw, res.SigmaPiPowerUw, res.AreaPiPerSqrtUw, res.SigmaAreaPiPerSqrtUw, res.RedChiSq)
+	if res.RedChiSq > 10 {
+		fmt.Fprintln(w, "note         χ²/DoF far above 1: the model's yield curve does not describe these counts (a dot with phonons needs --phonons-k T; a different dot --binding-mev/--detuning-mev); the errors are scaled up accordingly")
+	}
 	if *dry {
 		fmt.Fprintln(w, "dry run: nothing stored")
 	} else {
