@@ -25,8 +25,8 @@ import (
 func init() {
 	register("scan", scanSummary, &Command{
 		Name: "analyse", Summary: "plateau robustness of a power × chirp map per chirp, the most robust chirp, π fidelity; optional model fit",
-		Usage:   "ID [--json] [--fraction F] [--channel xx] [--fit [--area-scale S] [--binding-mev E] [--detuning-mev D] [--phonons-k T]]",
-		Example: "gliss scan analyse 20261202T014129.548Z-9a1041\ngliss scan analyse 20261202T014129.548Z-9a1041 --fit --phonons-k 4.2 --json",
+		Usage:   "ID [--json] [--fraction F] [--channel xx] [--fit [--area-scale S] [--binding-mev E] [--detuning-mev D] [--temperature-k T]]",
+		Example: "gliss scan analyse 20261202T014129.548Z-9a1041\ngliss scan analyse 20261202T014129.548Z-9a1041 --fit --temperature-k 4.2 --json",
 		Run:     runScanAnalyse,
 	})
 	register("scan", scanSummary, &Command{
@@ -43,8 +43,8 @@ func init() {
 	})
 	register("scan", scanSummary, &Command{
 		Name: "theory", Summary: "the dot model's map in a scan's GDD and power axes (no instruments), as CSV",
-		Usage:   "ID -o theory.csv [--channel xx|x] [--area-scale S] [--amplitude-counts A] [--background-counts B] [--phonons-k T]",
-		Example: "gliss scan theory 20261202T014129.548Z-9a1041 -o theory.csv --phonons-k 4.2",
+		Usage:   "ID -o theory.csv [--channel xx|x] [--area-scale S] [--amplitude-counts A] [--background-counts B] [--temperature-k T]",
+		Example: "gliss scan theory 20261202T014129.548Z-9a1041 -o theory.csv --temperature-k 4.2",
 		Run:     runScanTheory,
 	})
 }
@@ -92,9 +92,9 @@ func addModelFlags(fs *flag.FlagSet) *modelFlags {
 		detuning:      fs.Float64("detuning-mev", 0, "laser detuning per photon, meV (default 0)"),
 		amp:           fs.Float64("amplitude-counts", 0, "counts per photon per pulse (for counts beside the yield)"),
 		bg:            fs.Float64("background-counts", 0, "background counts"),
-		phononsK:      fs.Float64("phonons-k", -1, "include the dot's phonons at this sample temperature, K (default: no phonons)"),
-		phononAlpha:   fs.Float64("phonon-alpha-ps2", demo.AlphaPS2, "phonon coupling α, ps² (with --phonons-k)"),
-		phononCutoffM: fs.Float64("phonon-cutoff-mev", demo.CutoffMeV, "phonon cutoff ħωc, meV (with --phonons-k)"),
+		phononsK:      fs.Float64("temperature-k", -1, "include the dot's phonons at this sample temperature, K (default: no phonons)"),
+		phononAlpha:   fs.Float64("phonon-alpha-ps2", demo.AlphaPS2, "phonon coupling α, ps² (with --temperature-k)"),
+		phononCutoffM: fs.Float64("phonon-cutoff-mev", demo.CutoffMeV, "phonon cutoff ħωc, meV (with --temperature-k)"),
 	}
 }
 
@@ -120,7 +120,7 @@ func (m *modelFlags) model() *glissv1.DotModel {
 }
 
 func (m *modelFlags) phonons() *glissv1.Phonons {
-	if !calibFlagGiven(m.fs, "phonons-k") {
+	if !calibFlagGiven(m.fs, "temperature-k") {
 		return nil
 	}
 	return &glissv1.Phonons{AlphaPs2: *m.phononAlpha, CutoffMev: *m.phononCutoffM, TemperatureK: *m.phononsK}
@@ -131,9 +131,9 @@ var modelFieldFlags = map[string]string{
 	"model.area_pi_per_sqrt_uw": "--area-scale",
 	"model.amplitude_counts":    "--amplitude-counts",
 	"model.background_counts":   "--background-counts",
-	"model.phonons":             "--phonons-k/--phonon-alpha-ps2/--phonon-cutoff-mev",
+	"model.phonons":             "--temperature-k/--phonon-alpha-ps2/--phonon-cutoff-mev",
 	"model":                     "--binding-mev/--detuning-mev",
-	"phonons":                   "--phonons-k/--phonon-alpha-ps2/--phonon-cutoff-mev",
+	"phonons":                   "--temperature-k/--phonon-alpha-ps2/--phonon-cutoff-mev",
 	"fraction":                  "--fraction",
 	"channel":                   "--channel",
 }

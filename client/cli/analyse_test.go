@@ -110,7 +110,7 @@ func TestAnalyseReplayCompareTheory(t *testing.T) {
 	}
 
 	theory := filepath.Join(dir, "theory.csv")
-	if _, err := runWithStdin(t, ctx, "", "scan", "theory", id, "--server", addr, "-o", theory, "--area-scale", "1", "--amplitude-counts", "40000", "--phonons-k", "4.2"); err != nil {
+	if _, err := runWithStdin(t, ctx, "", "scan", "theory", id, "--server", addr, "-o", theory, "--area-scale", "1", "--amplitude-counts", "40000", "--temperature-k", "4.2"); err != nil {
 		t.Fatal(err)
 	}
 	f, _ = os.Open(theory)
@@ -150,7 +150,7 @@ func TestCalibCommands(t *testing.T) {
 		t.Fatal(err)
 	}
 	sweep := firstLine(out)
-	out, err = runWithStdin(t, ctx, "", "calib", "pulse-area", "--server", addr, "--from-scan", sweep, "--phonons-k", "4.2")
+	out, err = runWithStdin(t, ctx, "", "calib", "pulse-area", "--server", addr, "--from-scan", sweep, "--temperature-k", "4.2")
 	if err != nil || !strings.Contains(out, "π pulse") || !strings.Contains(out, "stored version 2") {
 		t.Fatalf("pulse-area: %v\n%s", err, out)
 	}

@@ -382,8 +382,8 @@ func init() {
 	})
 	register("calib", calibSummary, &Command{
 		Name: "pulse-area", Summary: "fit the pulse-area calibration to a stored zero-chirp power sweep and store it",
-		Usage:   "--from-scan ID [--channel xx] [--max-area-pi A] [--phonons-k T] [--note TEXT] [--dry-run] [--json]",
-		Example: "gliss scan power --power-uw 0.05:40:40 --spacing amplitude --gdd-ps2 0 --watch\ngliss calib pulse-area --from-scan 20261202T014129.417Z-68ed14 --phonons-k 4.2",
+		Usage:   "--from-scan ID [--channel xx] [--max-area-pi A] [--temperature-k T] [--note TEXT] [--dry-run] [--json]",
+		Example: "gliss scan power --power-uw 0.05:40:40 --spacing amplitude --gdd-ps2 0 --watch\ngliss calib pulse-area --from-scan 20261202T014129.417Z-68ed14 --temperature-k 4.2",
 		Run:     runCalibPulseArea,
 	})
 }
@@ -605,7 +605,7 @@ func runCalibPulseArea(ctx context.Context, env *Env, args []string) error {
 	defer done()
 	res, err := cs.CalibratePulseArea(ctx, req)
 	if err != nil {
-		return rpcError(err, map[string]string{"scan_id": "--from-scan", "channel": "--channel", "max_area_pi": "--max-area-pi", "phonons": "--phonons-k", "fwhm_ps": "--binding-mev/--detuning-mev"})
+		return rpcError(err, map[string]string{"scan_id": "--from-scan", "channel": "--channel", "max_area_pi": "--max-area-pi", "phonons": "--temperature-k", "fwhm_ps": "--binding-mev/--detuning-mev"})
 	}
 	if *asJSON {
 		return printProtoJSON(env.Stdout, res)
@@ -613,7 +613,7 @@ func runCalibPulseArea(ctx context.Context, env *Env, args []string) error {
 	w := env.Stdout
 	fmt.Fprintf(w, "π pulse      %.5g ± %.2g µW\nscale        %.6g ± %.2g π/√µW\nχ²/DoF       %.3g\n", res.PiPowerUw, res.SigmaPiPowerUw, res.AreaPiPerSqrtUw, res.SigmaAreaPiPerSqrtUw, res.RedChiSq)
 	if res.RedChiSq > 10 {
-		fmt.Fprintln(w, "note         χ²/DoF far above 1: the model's yield curve does not describe these counts (a dot with phonons needs --phonons-k T; a different dot --binding-mev/--detuning-mev); the errors are scaled up accordingly")
+		fmt.Fprintln(w, "note         χ²/DoF far above 1: the model's yield curve does not describe these counts (a dot with phonons needs --temperature-k T; a different dot --binding-mev/--detuning-mev); the errors are scaled up accordingly")
 	}
 	if *dry {
 		fmt.Fprintln(w, "dry run: nothing stored")
