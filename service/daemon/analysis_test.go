@@ -166,6 +166,16 @@ func TestAttenuatorCalibrationRun(t *testing.T) {
 		}
 	}
 
+	// The ND-wheel law, dry run: fitted and reported, nothing stored (the
+	// simulated plate is no ND wheel: a poor fit, but a law over 0–40°).
+	nd, err := cs.RunAttenuatorCalibration(ctx, &glissv1.RunAttenuatorCalibrationRequest{FromDeg: 0, ToDeg: 40, Count: 9, Law: glissv1.AttenuatorLaw_ATTENUATOR_LAW_ND_WHEEL, DryRun: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if nd.Calibration.GetVersion() != 1 || !strings.Contains(nd.FitJson, `"od_per_deg"`) || len(nd.ResidualsUw) != 9 {
+		t.Errorf("ND dry run: version %d, fit %s", nd.Calibration.GetVersion(), nd.FitJson)
+	}
+
 	// A scan on the bench: the procedure is refused.
 	sc, err := c.Submit(ctx, client.PowerSpec(client.Range(1, 10, 10), client.Options{GateMS: 2000}))
 	if err != nil {
