@@ -42,6 +42,7 @@ func roleProto(r drivers.Role) glissv1.Role {
 // describe reads one instrument's identity and state.
 func (s *Bench) describe(ctx context.Context, e *drivers.Entry) *glissv1.Instrument {
 	b := s.Engine.Bench()
+	cal := b.CurrentCalibration()
 	to := s.ReadTimeout
 	if to <= 0 {
 		to = 2 * time.Second
@@ -72,14 +73,14 @@ func (s *Bench) describe(ctx context.Context, e *drivers.Entry) *glissv1.Instrum
 		}
 		lim.StageMinMm, lim.StageMaxMm = l.StageMinMM, l.StageMaxMM
 		lim.StageSpeedMmPerS, lim.StageAccelMmPerS2 = l.StageSpeedMMPerS, l.StageAccelMMPerS2
-		g1, e1 := b.Calibration.Stretcher.GDDPS2(l.StageMinMM)
-		g2, e2 := b.Calibration.Stretcher.GDDPS2(l.StageMaxMM)
+		g1, e1 := cal.Stretcher.GDDPS2(l.StageMinMM)
+		g2, e2 := cal.Stretcher.GDDPS2(l.StageMaxMM)
 		if e1 == nil && e2 == nil {
 			lim.GddMinPs2, lim.GddMaxPs2 = math.Min(g1, g2), math.Max(g1, g2)
 		}
 		if mm, err := inst.PositionMM(ctx); err == nil {
 			st.StageMm = &mm
-			if g, err := b.Calibration.Stretcher.GDDPS2(mm); err == nil {
+			if g, err := cal.Stretcher.GDDPS2(mm); err == nil {
 				st.GddPs2 = &g
 			}
 		} else {
@@ -92,11 +93,13 @@ func (s *Bench) describe(ctx context.Context, e *drivers.Entry) *glissv1.Instrum
 			break
 		}
 		lim.AngleMinDeg, lim.AngleMaxDeg, lim.RotationSpeedDegPerS = l.AngleMinDeg, l.AngleMaxDeg, l.RotationSpeedDegPerS
-		lim.PowerMinUw, lim.PowerMaxUw = b.Calibration.Attenuator.PMinUW, math.Min(b.Calibration.Attenuator.PMaxUW, nonZero(l.PowerMaxUW))
+		lo, hi := cal.PowerRangeUW()
+		lim.PowerMinUw, lim.PowerMaxUw = lo, math.Min(hi, nonZero(l.PowerMaxUW))
 		if d, err := inst.AngleDeg(ctx); err == nil {
 			st.AngleDeg = &d
-			p := b.Calibration.Attenuator.PowerUW(d)
-			st.PowerUw = &p
+			if p, err := cal.PowerUW(d); err == nil {
+				st.PowerUw = &p
+			}
 		} else {
 			fail("angle", err)
 		}
@@ -205,6 +208,7 @@ func (s *Bench) SetInstrument(ctx context.Context, req *glissv1.SetInstrumentReq
 		return nil, err
 	}
 	b := s.Engine.Bench()
+	cal := b.CurrentCalibration()
 	l := e.Limits
 	finite := func(field string, v float64) error {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
@@ -226,7 +230,7 @@ func (s *Bench) SetInstrument(ctx context.Context, req *glissv1.SetInstrumentReq
 			if err := finite(field, g.GddPs2); err != nil {
 				return nil, err
 			}
-			mm, err = b.Calibration.Stretcher.PositionMM(g.GddPs2)
+			mm, err = cal.Stretcher.PositionMM(g.GddPs2)
 			if err != nil {
 				return nil, invalidField(field, "stretcher calibration: %v", err)
 			}
@@ -255,7 +259,7 @@ func (s *Bench) SetInstrument(ctx context.Context, req *glissv1.SetInstrumentReq
 			if l.PowerMaxUW > 0 && p.PowerUw > l.PowerMaxUW {
 				return nil, invalidField(field, "%g µW above the bench's maximum power %g µW", p.PowerUw, l.PowerMaxUW)
 			}
-			deg, err = b.Calibration.Attenuator.AngleDeg(p.PowerUw)
+			deg, err = cal.AngleDeg(p.PowerUw)
 			if err != nil {
 				return nil, invalidField(field, "%v", err)
 			}
@@ -271,7 +275,7 @@ func (s *Bench) SetInstrument(ctx context.Context, req *glissv1.SetInstrumentReq
 		if deg < l.AngleMinDeg || deg > l.AngleMaxDeg {
 			return nil, invalidField(field, "angle %.3f° outside the attenuator's range %g–%g°", deg, l.AngleMinDeg, l.AngleMaxDeg)
 		}
-		if pw := b.Calibration.Attenuator.PowerUW(deg); l.PowerMaxUW > 0 && pw > l.PowerMaxUW*(1+1e-9) {
+		if pw, err := cal.PowerUW(deg); err == nil && l.PowerMaxUW > 0 && pw > l.PowerMaxUW*(1+1e-9) {
 			return nil, invalidField(field, "angle %.3f° gives %.4g µW, above the bench's maximum power %g µW", deg, pw, l.PowerMaxUW)
 		}
 		do = func(ctx context.Context) error { return at.SetAngleDeg(ctx, deg) }
