@@ -25,10 +25,9 @@ func BenchmarkRHSPieces(b *testing.B) {
 			s.rhs(t, &y, &dy)
 		}
 	})
-	b.Run("eigwarm", func(b *testing.B) {
-		var h [3][3]float64
+	b.Run("eig", func(b *testing.B) {
 		var e [3]float64
-		v := [3][3]float64{{1, 0, 0}, {0, 1, 0}, {0, 0, 1}}
+		var v [3][3]float64
 		t := 0.0
 		for b.Loop() {
 			t += 0.01
@@ -36,9 +35,25 @@ func BenchmarkRHSPieces(b *testing.B) {
 				t = 0
 			}
 			w := 0.5 * l.Envelope.RabiAt(t)
-			h[1][1], h[2][2] = s.e1+s.s1*t, s.e2+s.s2*t
-			h[0][1], h[1][0], h[1][2], h[2][1] = -w, -w, -w, -w
-			symEig3Warm(&h, &e, &v)
+			ladderEig(s.e1+s.s1*t, s.e2+s.s2*t, -w, -w, &e, &v)
+		}
+	})
+	b.Run("coef", func(b *testing.B) {
+		var c coef
+		t := 0.0
+		for b.Loop() {
+			t += 0.01
+			if t > 5 {
+				t = 0
+			}
+			s.coefAt(t, &c)
+		}
+	})
+	b.Run("deriv", func(b *testing.B) {
+		var c coef
+		s.coefAt(1.3, &c)
+		for b.Loop() {
+			s.deriv(&c, &y, &dy)
 		}
 	})
 	b.Run("redfield", func(b *testing.B) {

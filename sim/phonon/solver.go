@@ -60,10 +60,10 @@ type Solver struct {
 	g1, g2         float64 // radiative decay X→G, XX→X, 1/ps
 	bath           bool
 	sp             spectrum
-	vWarm          [3][3]float64 // eigenvectors of the last H(t), the warm start of the next
 
 	// integrator
 	k           [12][nY]float64
+	cf          [12]coef // the coefficients at the 12 stage times of a step
 	y, ynew, yt [nY]float64
 	steps       int
 	rejects     int
@@ -143,9 +143,6 @@ func (s *Solver) setup(l *model.Ladder, b *Bath) {
 		s.sp = newSpectrum(b)
 	}
 	s.steps, s.rejects, s.rhsCalls = 0, 0, 0
-	// Every point starts from the same basis, so a point is a pure function
-	// of its parameters whatever the solver solved before.
-	s.vWarm = [3][3]float64{{1, 0, 0}, {0, 1, 0}, {0, 0, 1}}
 }
 
 // phases returns u1 = e^{iφ1(t)} and u2 = e^{iφ2(t)}, φ_j = E_j·t + S_j·t²/2.
@@ -171,13 +168,105 @@ func (s *Solver) labRho(t float64, y *[nY]float64, rho *[3][3]complex128) {
 
 func conj(z complex128) complex128 { return complex(real(z), -imag(z)) }
 
+// coef holds everything the right-hand side needs at one time t that does not
+// depend on the state: Ω(t)/2, the phase factors and, with the bath on, the
+// eigen-decomposition of H(t) and the secular Redfield rates in it. The
+// integrator computes it once per stage time, and the last stage of a step
+// (at t+h) serves as the first stage of the next.
+type coef struct {
+	w        float64    // Ω(t)/2
+	u1, u2   complex128 // e^{iφ1}, e^{iφ2}
+	v        complex128 // e^{i(φ2−φ1)}
+	redfield int        // redfieldOff, redfieldPauli or redfieldGeneral
+	vec      [3][3]float64
+	// Pauli form: rate[c][a] is the rate c → a (eigenstates), m the lab-frame
+	// M = V·diag(Σ_k rate[a][k])·Vᵀ.
+	rate, m [3][3]float64
+	// general secular rule: eigenvalues, S in the eigenbasis, Γ, cutoff
+	e    [3]float64
+	a, g [3][3]float64
+	cut  float64
+}
+
+const (
+	redfieldOff = iota
+	redfieldPauli
+	redfieldGeneral
+)
+
+// coefAt fills c for time t.
+func (s *Solver) coefAt(t float64, c *coef) {
+	om := s.env.RabiAt(t)
+	c.w = 0.5 * om
+	c.u1, c.u2 = s.phases(t)
+	c.v = c.u2 * conj(c.u1)
+	c.redfield = redfieldOff
+	if !s.bath || !(om > rabiFloorRadPS) {
+		return
+	}
+	vec := &c.vec
+	ladderEig(s.e1+s.s1*t, s.e2+s.s2*t, -s.k01*c.w, -s.k12*c.w, &c.e, vec)
+	// A = Vᵀ·S·V with S = diag(0, 1, 2).
+	a := &c.a
+	for i := range 3 {
+		for j := i; j < 3; j++ {
+			a[i][j] = vec[1][i]*vec[1][j] + 2*vec[2][i]*vec[2][j]
+			a[j][i] = a[i][j]
+		}
+	}
+	e := &c.e
+	g := &c.g
+	g[0][1], g[1][0] = s.sp.pair(e[0] - e[1])
+	g[0][2], g[2][0] = s.sp.pair(e[0] - e[2])
+	g[1][2], g[2][1] = s.sp.pair(e[1] - e[2])
+	// smallest non-zero gap (exactly equal eigenvalues do not count, as in
+	// QuTiP; all equal leaves MaxFloat64)
+	dwMin := math.MaxFloat64
+	for _, d := range [3]float64{math.Abs(e[0] - e[1]), math.Abs(e[0] - e[2]), math.Abs(e[1] - e[2])} {
+		if d != 0 && d < dwMin {
+			dwMin = d
+		}
+	}
+	c.cut = SecularCutoff * dwMin
+	if nearCoincidence(e, c.cut) {
+		c.redfield = redfieldGeneral
+		return
+	}
+	// Pauli rates among the eigenstates and the decay of each coherence
+	// (pauliAndDephasing), written for the lab frame: with P_a = v_a·v_aᵀ,
+	// p_a = tr(P_a·ρ) and m_a = Σ_k rate[a][k] the secular term is
+	// Σ_a (Σ_c rate[c][a]·p_c)·P_a − ½{M, ρ}, M = Σ_a m_a·P_a.
+	c.redfield = redfieldPauli
+	var mOut [3]float64
+	for i := range 3 {
+		for k := range 3 {
+			c.rate[i][k] = 0
+			if k != i {
+				c.rate[i][k] = a[i][k] * a[i][k] * g[i][k]
+				mOut[i] += c.rate[i][k]
+			}
+		}
+	}
+	for i := range 3 {
+		for j := i; j < 3; j++ {
+			c.m[i][j] = mOut[0]*vec[i][0]*vec[j][0] + mOut[1]*vec[i][1]*vec[j][1] + mOut[2]*vec[i][2]*vec[j][2]
+			c.m[j][i] = c.m[i][j]
+		}
+	}
+}
+
 // rhs evaluates dy/dt at t.
 func (s *Solver) rhs(t float64, y, dy *[nY]float64) {
+	var c coef
+	s.coefAt(t, &c)
+	s.deriv(&c, y, dy)
+}
+
+// deriv evaluates dy/dt with the time-dependent coefficients c.
+func (s *Solver) deriv(c *coef, y, dy *[nY]float64) {
 	s.rhsCalls++
-	om := s.env.RabiAt(t)
-	w := 0.5 * om
-	u1, u2 := s.phases(t)
-	v := u2 * conj(u1) // e^{i(φ2−φ1)}
+	w := c.w
+	u1, u2, v := c.u1, c.u2, c.v
 
 	p0, p1, p2 := y[0], y[1], y[2]
 	c01 := complex(y[3], y[4])
@@ -218,42 +307,34 @@ func (s *Solver) rhs(t float64, y, dy *[nY]float64) {
 	d12 -= complex(0.5*(s.g1+s.g2), 0) * c12
 	d02 -= complex(0.5*s.g2, 0) * c02
 
-	if s.bath && om > rabiFloorRadPS {
-		var h [3][3]float64
-		var e [3]float64
-		vec := &s.vWarm
-		h[1][1] = s.e1 + s.s1*t
-		h[2][2] = s.e2 + s.s2*t
-		h[0][1], h[1][0] = -s.k01*w, -s.k01*w
-		h[1][2], h[2][1] = -s.k12*w, -s.k12*w
-		symEig3Warm(&h, &e, vec)
+	if c.redfield != redfieldOff {
 		// lab-frame ρ
 		r01 := c01 * u1
 		r12 := c12 * v
 		r02 := c02 * u2
-		rho := [3][3]complex128{
-			{complex(p0, 0), r01, r02},
-			{conj(r01), complex(p1, 0), r12},
-			{conj(r02), conj(r12), complex(p2, 0)},
-		}
-		var re, dre, dl [3][3]complex128
-		var a [3][3]float64
-		// A = Vᵀ·S·V with S = diag(0, 1, 2); ρ_eig = Vᵀ·ρ·V.
-		for i := range 3 {
-			for j := i; j < 3; j++ {
-				a[i][j] = vec[1][i]*vec[1][j] + 2*vec[2][i]*vec[2][j]
-				a[j][i] = a[i][j]
+		var dl00, dl11, dl22 float64
+		var dl01, dl12, dl02 complex128
+		if c.redfield == redfieldPauli {
+			dl00, dl11, dl22, dl01, dl12, dl02 = pauliLab(c, p0, p1, p2, r01, r12, r02)
+		} else {
+			rho := [3][3]complex128{
+				{complex(p0, 0), r01, r02},
+				{conj(r01), complex(p1, 0), r12},
+				{conj(r02), conj(r12), complex(p2, 0)},
 			}
+			var re, dre, dl [3][3]complex128
+			transformToEig(&c.vec, &rho, &re)
+			secularLoop(&c.e, &c.a, &c.g, c.cut, &re, &dre)
+			transformFromEig(&c.vec, &dre, &dl)
+			dl00, dl11, dl22 = real(dl[0][0]), real(dl[1][1]), real(dl[2][2])
+			dl01, dl12, dl02 = dl[0][1], dl[1][2], dl[0][2]
 		}
-		transformToEig(vec, &rho, &re)
-		redfieldEig(&s.sp, &e, &a, &re, &dre)
-		transformFromEig(vec, &dre, &dl)
-		d00 += real(dl[0][0])
-		d11 += real(dl[1][1])
-		d22 += real(dl[2][2])
-		d01 += dl[0][1] * conj(u1)
-		d12 += dl[1][2] * conj(v)
-		d02 += dl[0][2] * conj(u2)
+		d00 += dl00
+		d11 += dl11
+		d22 += dl22
+		d01 += dl01 * conj(u1)
+		d12 += dl12 * conj(v)
+		d02 += dl02 * conj(u2)
 	}
 
 	dy[0], dy[1], dy[2] = d00, d11, d22
@@ -262,6 +343,50 @@ func (s *Solver) rhs(t float64, y, dy *[nY]float64) {
 	dy[7], dy[8] = real(d02), imag(d02)
 	dy[9] = s.g1 * p1
 	dy[10] = s.g2 * p2
+}
+
+// pauliLab is the secular Redfield term when no transition frequencies
+// coincide (pauliAndDephasing), evaluated in the lab frame without taking ρ
+// to the eigenbasis: dρ = Σ_a q_a·P_a − ½(M·ρ + ρ·M), q_a = Σ_c rate[c][a]·p_c,
+// p_c = v_cᵀ·ρ·v_c (real, as v_c is real). ρ is given by its diagonal
+// p0, p1, p2 and upper elements r01, r12, r02; the result likewise.
+func pauliLab(c *coef, p0, p1, p2 float64, r01, r12, r02 complex128) (d00, d11, d22 float64, d01, d12, d02 complex128) {
+	v := &c.vec
+	x01, x12, x02 := 2*real(r01), 2*real(r12), 2*real(r02)
+	var pe [3]float64
+	for k := range 3 {
+		a0, a1, a2 := v[0][k], v[1][k], v[2][k]
+		pe[k] = a0*a0*p0 + a1*a1*p1 + a2*a2*p2 + a0*a1*x01 + a1*a2*x12 + a0*a2*x02
+	}
+	rt := &c.rate
+	q0 := rt[1][0]*pe[1] + rt[2][0]*pe[2]
+	q1 := rt[0][1]*pe[0] + rt[2][1]*pe[2]
+	q2 := rt[0][2]*pe[0] + rt[1][2]*pe[1]
+	qij := func(i, j int) float64 { return q0*v[i][0]*v[j][0] + q1*v[i][1]*v[j][1] + q2*v[i][2]*v[j][2] }
+	m := &c.m
+	// (M·ρ)_jk for the elements needed; ρ_10 = conj(r01) etc.
+	r10, r21, r20 := conj(r01), conj(r12), conj(r02)
+	P0, P1, P2 := complex(p0, 0), complex(p1, 0), complex(p2, 0)
+	mr := func(j int, col0, col1, col2 complex128) complex128 {
+		return scale(col0, m[j][0]) + scale(col1, m[j][1]) + scale(col2, m[j][2])
+	}
+	// columns of ρ: k=0 (P0, r10, r20), k=1 (r01, P1, r21), k=2 (r02, r12, P2)
+	x00 := mr(0, P0, r10, r20)
+	x11 := mr(1, r01, P1, r21)
+	x22 := mr(2, r02, r12, P2)
+	x01m := mr(0, r01, P1, r21)
+	x10m := mr(1, P0, r10, r20)
+	x12m := mr(1, r02, r12, P2)
+	x21m := mr(2, r01, P1, r21)
+	x02m := mr(0, r02, r12, P2)
+	x20m := mr(2, P0, r10, r20)
+	d00 = qij(0, 0) - real(x00)
+	d11 = qij(1, 1) - real(x11)
+	d22 = qij(2, 2) - real(x22)
+	d01 = complex(qij(0, 1), 0) - 0.5*(x01m+conj(x10m))
+	d12 = complex(qij(1, 2), 0) - 0.5*(x12m+conj(x21m))
+	d02 = complex(qij(0, 2), 0) - 0.5*(x02m+conj(x20m))
+	return
 }
 
 // transformToEig sets out = Vᵀ·m·V for Hermitian m and real orthogonal V.
@@ -300,18 +425,6 @@ func transformFromEig(v *[3][3]float64, m, out *[3][3]complex128) {
 
 func scale(z complex128, r float64) complex128 { return complex(real(z)*r, imag(z)*r) }
 
-// dopNonzero lists, for each stage i, the j < i with a_ij ≠ 0.
-var dopNonzero = func() (rows [12][]int) {
-	for i := range 12 {
-		for j := range i {
-			if dopA[i][j] != 0 {
-				rows[i] = append(rows[i], j)
-			}
-		}
-	}
-	return rows
-}()
-
 // integrate advances s.y from t0 to t1 with DOP853 steps (12 evaluations of
 // the right-hand side per step) and Hairer's step-size rule for it: the
 // combined 5th/3rd-order error estimate, exponent 1/8, growth at most 6× and
@@ -326,11 +439,12 @@ func (s *Solver) integrate(t0, t1, maxStep, tol float64) error {
 		growMax = 6.0
 		shrink  = 3.0
 	)
-	y, yn, yt, k := &s.y, &s.ynew, &s.yt, &s.k
+	y, yn, yt, k, cf := &s.y, &s.ynew, &s.yt, &s.k, &s.cf
 	t := t0
 	h := min(maxStep, 1e-3*(t1-t0))
 	rejected := false
-	s.rhs(t, y, &k[0])
+	s.coefAt(t, &cf[0])
+	s.deriv(&cf[0], y, &k[0])
 	for {
 		if s.steps+s.rejects >= maxSteps {
 			return fmt.Errorf("at t = %.3f ps after %d steps: %w", t, s.steps, ErrTooManySteps)
@@ -340,37 +454,15 @@ func (s *Solver) integrate(t0, t1, maxStep, tol float64) error {
 			h = t1 - t
 			last = true
 		}
+		// The coefficients do not depend on the state: all stage times first.
 		for i := 1; i < 12; i++ {
-			row := &dopA[i]
-			*yt = *y
-			for _, j := range dopNonzero[i] {
-				a, kj := h*row[j], &k[j]
-				for q := range nY {
-					yt[q] += a * kj[q]
-				}
-			}
-			s.rhs(t+dopC[i]*h, yt, &k[i])
+			s.coefAt(t+dopC[i]*h, &cf[i])
 		}
-		var e5, e3 float64
-		for q := range nY {
-			var b, d5, d3 float64
-			for j := range 12 {
-				kj := k[j][q]
-				b += dopB[j] * kj
-				d5 += dopE5[j] * kj
-				d3 += dopE3[j] * kj
-			}
-			yn[q] = y[q] + h*b
-			sc := tol + tol*math.Max(math.Abs(y[q]), math.Abs(yn[q]))
-			d5 /= sc
-			d3 /= sc
-			e5 += d5 * d5
-			e3 += d3 * d3
+		for i := 1; i < 12; i++ {
+			stageArg(i, h, y, yt, k)
+			s.deriv(&cf[i], yt, &k[i])
 		}
-		var errN float64
-		if e5 != 0 || e3 != 0 {
-			errN = h * e5 / math.Sqrt((e5+0.01*e3)*nY)
-		}
+		errN := combine(h, tol, y, yn, k)
 		if math.IsNaN(errN) {
 			return fmt.Errorf("at t = %.3f ps: error estimate is NaN", t)
 		}
@@ -383,14 +475,12 @@ func (s *Solver) integrate(t0, t1, maxStep, tol float64) error {
 				t += h
 			}
 			*y = *yn
-			if s.bath {
-				// rounding in the warm-started rotations must not pile up
-				orthonormalise(&s.vWarm)
-			}
 			if last {
 				return nil
 			}
-			s.rhs(t, y, &k[0])
+			// dopC[11] = 1: the last stage was at t+h, the new t
+			cf[0] = cf[11]
+			s.deriv(&cf[0], y, &k[0])
 			hNew := h / math.Max(1/growMax, math.Min(shrink, fac))
 			if rejected {
 				hNew = math.Min(hNew, h)

@@ -1,0 +1,104 @@
+package phonon
+
+import (
+	"math"
+	"math/rand/v2"
+	"testing"
+)
+
+// TestStageSumsMatchTableau: the written-out stage sums of step.go use
+// exactly the non-zero a_ij of the tableau, and b, e5 and e3 vanish on the
+// stages combine leaves out.
+func TestStageSumsMatchTableau(t *testing.T) {
+	for i := 1; i < 12; i++ {
+		var want []int
+		for j := range i {
+			if dopA[i][j] != 0 {
+				want = append(want, j)
+			}
+		}
+		got := stageCols[i]
+		if len(got) != len(want) {
+			t.Fatalf("stage %d: columns %v, tableau %v", i, got, want)
+		}
+		for n := range got {
+			if got[n] != want[n] {
+				t.Fatalf("stage %d: columns %v, tableau %v", i, got, want)
+			}
+		}
+		// stageArg against the sum over the tableau row
+		var y, yt [nY]float64
+		var k [12][nY]float64
+		for q := range nY {
+			y[q] = float64(q) + 0.5
+			for j := range 12 {
+				k[j][q] = float64(j*nY+q)*0.01 - 0.3
+			}
+		}
+		const h = 0.37
+		stageArg(i, h, &y, &yt, &k)
+		for q := range nY {
+			w := y[q]
+			for j := range i {
+				w += h * dopA[i][j] * k[j][q]
+			}
+			if d := yt[q] - w; d > 1e-12 || d < -1e-12 {
+				t.Fatalf("stage %d component %d: %g, tableau sum %g", i, q, yt[q], w)
+			}
+		}
+	}
+	for j := 1; j <= 4; j++ {
+		if dopB[j] != 0 || dopE5[j] != 0 || dopE3[j] != 0 {
+			t.Errorf("stage %d: b %g e5 %g e3 %g, combine assumes 0", j, dopB[j], dopE5[j], dopE3[j])
+		}
+	}
+}
+
+// TestLadderEig checks the closed-form eigen-decomposition of the ladder
+// matrix: H·v = λ·v to 1e-13 of ‖H‖, V orthonormal, λ ascending, on random
+// ladders over six decades of coupling (down to the near crossings of the
+// pulse's wings, where it hands over to Jacobi) and against symEig3's
+// eigenvalues.
+func TestLadderEig(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	type lad struct{ d1, d2, a, b float64 }
+	cases := []lad{{3.1, 0, -1.4, -1.4}, {0, 0, 0, 0}, {1, 1, 0, 0}, {2, -1, 1e-9, 1e-9}, {1e-7, 3, -1e-4, -1e-4}, {4, 4 + 1e-9, -1e-6, -1e-6}, {0, 0, 1, 0}}
+	for range 2000 {
+		s := math.Pow(10, float64(rng.IntN(7)-5))
+		cases = append(cases, lad{5 * rng.NormFloat64(), 5 * rng.NormFloat64(), s * rng.NormFloat64(), s * rng.NormFloat64()})
+	}
+	for _, c := range cases {
+		h := [3][3]float64{{0, c.a, 0}, {c.a, c.d1, c.b}, {0, c.b, c.d2}}
+		var e, ej [3]float64
+		var v, vj [3][3]float64
+		ladderEig(c.d1, c.d2, c.a, c.b, &e, &v)
+		hh := h
+		symEig3(&hh, &ej, &vj)
+		ej[0], ej[1], ej[2] = sort3(ej[0], ej[1], ej[2])
+		norm := math.Max(math.Abs(c.d1), math.Abs(c.d2)) + math.Abs(c.a) + math.Abs(c.b)
+		if !(e[0] <= e[1] && e[1] <= e[2]) {
+			t.Fatalf("%+v: eigenvalues %v not ascending", c, e)
+		}
+		for k := range 3 {
+			if d := math.Abs(e[k] - ej[k]); d > 1e-13*norm+1e-300 {
+				t.Fatalf("%+v: λ%d = %.17g, Jacobi %.17g", c, k, e[k], ej[k])
+			}
+			for i := range 3 {
+				hv := h[i][0]*v[0][k] + h[i][1]*v[1][k] + h[i][2]*v[2][k]
+				if d := math.Abs(hv - e[k]*v[i][k]); d > 1e-13*norm+1e-300 {
+					t.Fatalf("%+v: residual %.2e for eigenpair %d", c, d, k)
+				}
+			}
+			for l := range 3 {
+				dot := v[0][k]*v[0][l] + v[1][k]*v[1][l] + v[2][k]*v[2][l]
+				want := 0.0
+				if k == l {
+					want = 1
+				}
+				if math.Abs(dot-want) > 1e-13 {
+					t.Fatalf("%+v: vᵀv[%d][%d] = %g", c, k, l, dot)
+				}
+			}
+		}
+	}
+}
