@@ -68,10 +68,12 @@ type Solver struct {
 	steps       int
 	rejects     int
 	rhsCalls    int
+	interpSteps int  // steps whose Redfield term was interpolated at 7 stages
+	interpolate bool // interpolate the Redfield term where the guard allows
 }
 
 // NewSolver returns a solver ready for use.
-func NewSolver() *Solver { return &Solver{plain: model.NewSolver()} }
+func NewSolver() *Solver { return &Solver{plain: model.NewSolver(), interpolate: true} }
 
 // Solve solves one point. With b == nil or b.AlphaPS2 == 0 it returns the
 // plain model's result (model.Solver.Solve), bit for bit.
@@ -142,7 +144,7 @@ func (s *Solver) setup(l *model.Ladder, b *Bath) {
 	if s.bath {
 		s.sp = newSpectrum(b)
 	}
-	s.steps, s.rejects, s.rhsCalls = 0, 0, 0
+	s.steps, s.rejects, s.rhsCalls, s.interpSteps = 0, 0, 0, 0
 }
 
 // phases returns u1 = e^{iφ1(t)} and u2 = e^{iφ2(t)}, φ_j = E_j·t + S_j·t²/2.
@@ -178,15 +180,23 @@ type coef struct {
 	u1, u2   complex128 // e^{iφ1}, e^{iφ2}
 	v        complex128 // e^{i(φ2−φ1)}
 	redfield int        // redfieldOff, redfieldPauli or redfieldGeneral
-	vec      [3][3]float64
-	// Pauli form: rate[c][a] is the rate c → a (eigenstates), m the lab-frame
-	// M = V·diag(Σ_k rate[a][k])·Vᵀ.
-	rate, m [3][3]float64
-	// general secular rule: eigenvalues, S in the eigenbasis, Γ, cutoff
+	// Pauli form (see pauliLab): rf[0:36] is the 6×6 matrix K that maps
+	// x = (ρ00, ρ11, ρ22, 2Re ρ01, 2Re ρ12, 2Re ρ02) (lab frame) to the
+	// population-transfer part Q (Q00, Q11, Q22, Q01, Q12, Q02), rf[36:42]
+	// the lab-frame M (M00, M11, M22, M01, M12, M02). Both are sums over
+	// projectors on eigenstates, free of the signs and order of the
+	// eigenvectors, so they are smooth in t and can be interpolated.
+	rf [nRF]float64
+	// general secular rule: eigenvectors, eigenvalues, S in the eigenbasis,
+	// Γ, cutoff
+	vec  [3][3]float64
 	e    [3]float64
 	a, g [3][3]float64
 	cut  float64
 }
+
+// nRF is the number of reals of the Pauli form of the Redfield term.
+const nRF = 42
 
 const (
 	redfieldOff = iota
@@ -194,12 +204,19 @@ const (
 	redfieldGeneral
 )
 
-// coefAt fills c for time t.
-func (s *Solver) coefAt(t float64, c *coef) {
+// coherentAt fills the coherent part of c (Ω/2 and the phase factors) for
+// time t and returns Ω(t).
+func (s *Solver) coherentAt(t float64, c *coef) float64 {
 	om := s.env.RabiAt(t)
 	c.w = 0.5 * om
 	c.u1, c.u2 = s.phases(t)
 	c.v = c.u2 * conj(c.u1)
+	return om
+}
+
+// coefAt fills c for time t.
+func (s *Solver) coefAt(t float64, c *coef) {
+	om := s.coherentAt(t, c)
 	c.redfield = redfieldOff
 	if !s.bath || !(om > rabiFloorRadPS) {
 		return
@@ -237,21 +254,37 @@ func (s *Solver) coefAt(t float64, c *coef) {
 	// p_a = tr(P_a·ρ) and m_a = Σ_k rate[a][k] the secular term is
 	// Σ_a (Σ_c rate[c][a]·p_c)·P_a − ½{M, ρ}, M = Σ_a m_a·P_a.
 	c.redfield = redfieldPauli
+	var rate [3][3]float64 // rate[c][a]: c → a
 	var mOut [3]float64
 	for i := range 3 {
 		for k := range 3 {
-			c.rate[i][k] = 0
 			if k != i {
-				c.rate[i][k] = a[i][k] * a[i][k] * g[i][k]
-				mOut[i] += c.rate[i][k]
+				rate[i][k] = a[i][k] * a[i][k] * g[i][k]
+				mOut[i] += rate[i][k]
 			}
 		}
 	}
-	for i := range 3 {
-		for j := i; j < 3; j++ {
-			c.m[i][j] = mOut[0]*vec[i][0]*vec[j][0] + mOut[1]*vec[i][1]*vec[j][1] + mOut[2]*vec[i][2]*vec[j][2]
-			c.m[j][i] = c.m[i][j]
+	// pr[a] = (V0a², V1a², V2a², V0a·V1a, V1a·V2a, V0a·V2a): p_a = pr[a]·x,
+	// and P_a = v_a·v_aᵀ has the elements pr[a] (in the order of Q).
+	var pr [3][6]float64
+	for k := range 3 {
+		v0, v1, v2 := vec[0][k], vec[1][k], vec[2][k]
+		pr[k] = [6]float64{v0 * v0, v1 * v1, v2 * v2, v0 * v1, v1 * v2, v0 * v2}
+	}
+	// into k: Σ_c rate[c][k]·p_c = in[k]·x
+	var in [3][6]float64
+	for n := range 6 {
+		in[0][n] = rate[1][0]*pr[1][n] + rate[2][0]*pr[2][n]
+		in[1][n] = rate[0][1]*pr[0][n] + rate[2][1]*pr[2][n]
+		in[2][n] = rate[0][2]*pr[0][n] + rate[1][2]*pr[1][n]
+	}
+	rf := &c.rf
+	for i := range 6 {
+		a0, a1, a2 := pr[0][i], pr[1][i], pr[2][i]
+		for n := range 6 {
+			rf[6*i+n] = a0*in[0][n] + a1*in[1][n] + a2*in[2][n]
 		}
+		rf[36+i] = mOut[0]*a0 + mOut[1]*a1 + mOut[2]*a2
 	}
 }
 
@@ -315,7 +348,7 @@ func (s *Solver) deriv(c *coef, y, dy *[nY]float64) {
 		var dl00, dl11, dl22 float64
 		var dl01, dl12, dl02 complex128
 		if c.redfield == redfieldPauli {
-			dl00, dl11, dl22, dl01, dl12, dl02 = pauliLab(c, p0, p1, p2, r01, r12, r02)
+			dl00, dl11, dl22, dl01, dl12, dl02 = pauliLab(&c.rf, p0, p1, p2, r01, r12, r02)
 		} else {
 			rho := [3][3]complex128{
 				{complex(p0, 0), r01, r02},
@@ -347,45 +380,31 @@ func (s *Solver) deriv(c *coef, y, dy *[nY]float64) {
 
 // pauliLab is the secular Redfield term when no transition frequencies
 // coincide (pauliAndDephasing), evaluated in the lab frame without taking ρ
-// to the eigenbasis: dρ = Σ_a q_a·P_a − ½(M·ρ + ρ·M), q_a = Σ_c rate[c][a]·p_c,
-// p_c = v_cᵀ·ρ·v_c (real, as v_c is real). ρ is given by its diagonal
-// p0, p1, p2 and upper elements r01, r12, r02; the result likewise.
-func pauliLab(c *coef, p0, p1, p2 float64, r01, r12, r02 complex128) (d00, d11, d22 float64, d01, d12, d02 complex128) {
-	v := &c.vec
-	x01, x12, x02 := 2*real(r01), 2*real(r12), 2*real(r02)
-	var pe [3]float64
-	for k := range 3 {
-		a0, a1, a2 := v[0][k], v[1][k], v[2][k]
-		pe[k] = a0*a0*p0 + a1*a1*p1 + a2*a2*p2 + a0*a1*x01 + a1*a2*x12 + a0*a2*x02
+// to the eigenbasis: with P_a = v_a·v_aᵀ, p_a = tr(P_a·ρ) (real, as v_a is
+// real) and m_a the total rate out of a,
+//
+//	dρ = Σ_a (Σ_c rate[c→a]·p_c)·P_a − ½(M·ρ + ρ·M),  M = Σ_a m_a·P_a,
+//
+// whose first part is K·x (coef.rf). ρ is given by its diagonal p0, p1, p2
+// and upper elements r01, r12, r02; the result likewise.
+func pauliLab(rf *[nRF]float64, p0, p1, p2 float64, r01, r12, r02 complex128) (d00, d11, d22 float64, d01, d12, d02 complex128) {
+	x0, x1, x2, x3, x4, x5 := p0, p1, p2, 2*real(r01), 2*real(r12), 2*real(r02)
+	var q [6]float64
+	for i := range 6 {
+		k := rf[6*i : 6*i+6 : 6*i+6]
+		q[i] = k[0]*x0 + k[1]*x1 + k[2]*x2 + k[3]*x3 + k[4]*x4 + k[5]*x5
 	}
-	rt := &c.rate
-	q0 := rt[1][0]*pe[1] + rt[2][0]*pe[2]
-	q1 := rt[0][1]*pe[0] + rt[2][1]*pe[2]
-	q2 := rt[0][2]*pe[0] + rt[1][2]*pe[1]
-	qij := func(i, j int) float64 { return q0*v[i][0]*v[j][0] + q1*v[i][1]*v[j][1] + q2*v[i][2]*v[j][2] }
-	m := &c.m
-	// (M·ρ)_jk for the elements needed; ρ_10 = conj(r01) etc.
-	r10, r21, r20 := conj(r01), conj(r12), conj(r02)
-	P0, P1, P2 := complex(p0, 0), complex(p1, 0), complex(p2, 0)
-	mr := func(j int, col0, col1, col2 complex128) complex128 {
-		return scale(col0, m[j][0]) + scale(col1, m[j][1]) + scale(col2, m[j][2])
-	}
-	// columns of ρ: k=0 (P0, r10, r20), k=1 (r01, P1, r21), k=2 (r02, r12, P2)
-	x00 := mr(0, P0, r10, r20)
-	x11 := mr(1, r01, P1, r21)
-	x22 := mr(2, r02, r12, P2)
-	x01m := mr(0, r01, P1, r21)
-	x10m := mr(1, P0, r10, r20)
-	x12m := mr(1, r02, r12, P2)
-	x21m := mr(2, r01, P1, r21)
-	x02m := mr(0, r02, r12, P2)
-	x20m := mr(2, P0, r10, r20)
-	d00 = qij(0, 0) - real(x00)
-	d11 = qij(1, 1) - real(x11)
-	d22 = qij(2, 2) - real(x22)
-	d01 = complex(qij(0, 1), 0) - 0.5*(x01m+conj(x10m))
-	d12 = complex(qij(1, 2), 0) - 0.5*(x12m+conj(x21m))
-	d02 = complex(qij(0, 2), 0) - 0.5*(x02m+conj(x20m))
+	m00, m11, m22, m01, m12, m02 := rf[36], rf[37], rf[38], rf[39], rf[40], rf[41]
+	// {M, ρ}_jk = Σ_l M_jl·ρ_lk + ρ_jl·M_lk
+	d00 = q[0] - (m00*p0 + m01*real(r01) + m02*real(r02))
+	d11 = q[1] - (m11*p1 + m01*real(r01) + m12*real(r12))
+	d22 = q[2] - (m22*p2 + m02*real(r02) + m12*real(r12))
+	// (M·ρ)_01 + (ρ·M)_01 = m00·r01 + m01·p1 + m02·r21 + p0·m01 + r01·m11 + r02·m21
+	d01 = complex(q[3], 0) - 0.5*(scale(r01, m00+m11)+complex(m01*(p0+p1), 0)+scale(conj(r12), m02)+scale(r02, m12))
+	// (M·ρ)_12 + (ρ·M)_12 = m10·r02 + m11·r12 + m12·p2 + r10·m02 + p1·m12 + r12·m22
+	d12 = complex(q[4], 0) - 0.5*(scale(r02, m01)+scale(r12, m11+m22)+complex(m12*(p1+p2), 0)+scale(conj(r01), m02))
+	// (M·ρ)_02 + (ρ·M)_02 = m00·r02 + m01·r12 + m02·p2 + p0·m02 + r01·m12 + r02·m22
+	d02 = complex(q[5], 0) - 0.5*(scale(r02, m00+m22)+scale(r12, m01)+complex(m02*(p0+p2), 0)+scale(r01, m12))
 	return
 }
 
@@ -425,6 +444,93 @@ func transformFromEig(v *[3][3]float64, m, out *[3][3]complex128) {
 
 func scale(z complex128, r float64) complex128 { return complex(real(z)*r, imag(z)*r) }
 
+// Stages whose Redfield term is interpolated. The Pauli form of the term
+// (coef.rf) is a smooth function of t on the time scale of the change of
+// H(t)'s eigenvectors and gaps, which is long against a step wherever the
+// phonons matter; it is computed exactly at the stage times 0, c4, c9, c10
+// and c11 = 1 of the step and interpolated by the quartic through them at the
+// other seven (whose c lie in [0.05, 0.66]). The coherent part is exact at
+// every stage. A guard decides per step: the cubic through 0, c4, c10, c11
+// must reproduce the exact value at c9 to rfGuard × the tolerance (1/ps);
+// when it does not, or when any node is not in the Pauli form, every stage is
+// exact. The quartic's own error is then smaller by about (h/T)/4 where T is
+// the time scale of the term.
+var (
+	rfNodes  = [5]int{0, 4, 9, 10, 11}
+	rfInterp = [7]int{1, 2, 3, 5, 6, 7, 8}
+	// rfWeight[i][n]: Lagrange weight of node n at stage rfInterp[i]
+	rfWeight [7][5]float64
+	// rfGuardW[n]: cubic through nodes 0, 1, 3, 4 evaluated at node 2 (c9)
+	rfGuardW [5]float64
+)
+
+// rfGuard is the guard's threshold in units of the tolerance (1/ps): far
+// below the local error the step control allows.
+const rfGuard = 0.1
+
+func init() {
+	lag := func(nodes []int, n int, c float64) float64 {
+		w := 1.0
+		for _, m := range nodes {
+			if m != nodes[n] {
+				w *= (c - dopC[m]) / (dopC[nodes[n]] - dopC[m])
+			}
+		}
+		return w
+	}
+	for i, st := range rfInterp {
+		for n := range rfNodes {
+			rfWeight[i][n] = lag(rfNodes[:], n, dopC[st])
+		}
+	}
+	g := []int{rfNodes[0], rfNodes[1], rfNodes[3], rfNodes[4]}
+	for n, idx := range []int{0, 1, 3, 4} {
+		rfGuardW[idx] = lag(g, n, dopC[rfNodes[2]])
+	}
+}
+
+// stageCoefs fills s.cf[1…11] for the step from t of length h (cf[0] is the
+// coefficient set at t).
+func (s *Solver) stageCoefs(t, h, tol float64) {
+	cf := &s.cf
+	for _, i := range rfNodes[1:] {
+		s.coefAt(t+dopC[i]*h, &cf[i])
+	}
+	ok := s.bath && s.interpolate
+	for _, i := range rfNodes {
+		ok = ok && cf[i].redfield == redfieldPauli
+	}
+	if ok {
+		lim := rfGuard * tol
+		r0, r1, r2, r3, r4 := &cf[0].rf, &cf[4].rf, &cf[9].rf, &cf[10].rf, &cf[11].rf
+		g0, g1, g3, g4 := rfGuardW[0], rfGuardW[1], rfGuardW[3], rfGuardW[4]
+		for n := range nRF {
+			if d := g0*r0[n] + g1*r1[n] + g3*r3[n] + g4*r4[n] - r2[n]; !(math.Abs(d) <= lim) {
+				ok = false
+				break
+			}
+		}
+	}
+	if !ok {
+		for _, i := range rfInterp {
+			s.coefAt(t+dopC[i]*h, &cf[i])
+		}
+		return
+	}
+	s.interpSteps++
+	r0, r1, r2, r3, r4 := &cf[0].rf, &cf[4].rf, &cf[9].rf, &cf[10].rf, &cf[11].rf
+	for j, i := range rfInterp {
+		c := &cf[i]
+		s.coherentAt(t+dopC[i]*h, c)
+		c.redfield = redfieldPauli
+		w := &rfWeight[j]
+		w0, w1, w2, w3, w4 := w[0], w[1], w[2], w[3], w[4]
+		for n := range nRF {
+			c.rf[n] = w0*r0[n] + w1*r1[n] + w2*r2[n] + w3*r3[n] + w4*r4[n]
+		}
+	}
+}
+
 // integrate advances s.y from t0 to t1 with DOP853 steps (12 evaluations of
 // the right-hand side per step) and Hairer's step-size rule for it: the
 // combined 5th/3rd-order error estimate, exponent 1/8, growth at most 6× and
@@ -455,9 +561,7 @@ func (s *Solver) integrate(t0, t1, maxStep, tol float64) error {
 			last = true
 		}
 		// The coefficients do not depend on the state: all stage times first.
-		for i := 1; i < 12; i++ {
-			s.coefAt(t+dopC[i]*h, &cf[i])
-		}
+		s.stageCoefs(t, h, tol)
 		for i := 1; i < 12; i++ {
 			stageArg(i, h, y, yt, k)
 			s.deriv(&cf[i], yt, &k[i])

@@ -102,3 +102,38 @@ func TestLadderEig(t *testing.T) {
 		}
 	}
 }
+
+// TestInterpolatedRedfield: interpolating the Redfield term at seven of the
+// twelve stages (stageCoefs) changes no golden case by more than 1e-8, far
+// below the solver's own error (~2e-7 at the default tolerance), and is
+// actually used on most steps of the plateau cases.
+func TestInterpolatedRedfield(t *testing.T) {
+	g := loadGolden(t)
+	exact, interp := NewSolver(), NewSolver()
+	exact.interpolate = false
+	var worst float64
+	for _, c := range g.Cases {
+		p, b := c.params()
+		l := p.Ladder()
+		a, err := exact.solveLadder(&l, &b, DefaultTolerance)
+		if err != nil {
+			t.Fatal(err)
+		}
+		r, err := interp.solveLadder(&l, &b, DefaultTolerance)
+		if err != nil {
+			t.Fatal(err)
+		}
+		d := maxDiff(a.result(), r.result())
+		worst = max(worst, d)
+		if d > 1e-8 {
+			t.Errorf("%s: interpolated %+v, exact %+v (|d| %.1e > 1e-8)", c.Name, r.result(), a.result(), d)
+		}
+		if exact.interpSteps != 0 {
+			t.Errorf("%s: %d interpolated steps with interpolation off", c.Name, exact.interpSteps)
+		}
+		if c.Name == "plus20_a8_4K2" && interp.interpSteps < interp.steps/2 {
+			t.Errorf("%s: interpolated on %d of %d steps, want most", c.Name, interp.interpSteps, interp.steps)
+		}
+	}
+	t.Logf("largest change from interpolation %.1e", worst)
+}
