@@ -14,7 +14,7 @@
 //
 // With b == nil or b.AlphaPS2 == 0 Solve and Map are model's Solve and Map,
 // bit for bit. Otherwise the solver (solver.go) integrates the density matrix
-// with an error-controlled Runge–Kutta 5(4) pair at Params.Tolerance (0:
+// with the error-controlled Runge–Kutta method DOP853 at Params.Tolerance (0:
 // DefaultTolerance), without allocating per step; Map spreads points over
 // GOMAXPROCS goroutines, and each point is a pure function of its
 // parameters, so maps are deterministic.

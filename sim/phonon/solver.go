@@ -17,12 +17,28 @@ import (
 // The state lives in the interaction picture of the diagonal part of H, whose
 // phases are known in closed form (model.Ladder.Phase): the coherent part of
 // the right-hand side is then proportional to Ω(t), so steps grow long in the
-// wings of the pulse. At every right-hand-side call the lab-frame H(t) is
-// diagonalised (symEig3), the density matrix is taken to that eigenbasis, the
-// secular Redfield tensor of QuTiP's brmesolve is applied (redfieldEig) and
-// the result is taken back — the same construction as brmesolve, which also
-// keeps the coherent part and the Lindblad radiative decay exact and adds the
-// Redfield term in the instantaneous eigenbasis.
+// wings of the pulse. The Redfield term is the secular tensor of QuTiP's
+// brmesolve in the instantaneous eigenbasis of the lab-frame H(t) — the same
+// construction as brmesolve, which also keeps the coherent part and the
+// Lindblad radiative decay exact and adds the Redfield term in that basis.
+//
+// Where the cost goes, and what keeps it low:
+//   - Everything that depends on t only (Ω, the phase factors, the
+//     eigen-decomposition of H(t), the bath rates) is computed once per stage
+//     time (coef, coefAt), and the last stage of a step, at t+h, is the first
+//     of the next.
+//   - H(t) is a ladder matrix (zero G energy, real couplings on two links),
+//     diagonalised in closed form (ladderEig), with Jacobi (symEig3) only
+//     near exact crossings.
+//   - When no transition frequencies coincide — almost always — the secular
+//     tensor is Pauli rates plus the decay of each coherence; it is applied in
+//     the lab frame as Σ_a q_a·P_a − ½{M, ρ} (pauliLab), without taking ρ to
+//     the eigenbasis and back. Its 42 coefficients are sums over projectors,
+//     smooth in t, so a step computes them at five of its twelve stage times
+//     and interpolates the other seven, behind a per-step guard
+//     (stageCoefs); near coincidences use the tensor written out.
+//   - The DOP853 stage sums are written out over the tableau's non-zeros
+//     (step.go).
 //
 // State: ρ̃00, ρ̃11, ρ̃22, Re/Im ρ̃01, Re/Im ρ̃12, Re/Im ρ̃02, then γ1·∫ρ11 dt and
 // γ2·∫ρ22 dt (the emitted photons, integrated with the same error control).
