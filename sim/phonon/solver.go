@@ -196,12 +196,12 @@ type coef struct {
 	u1, u2   complex128 // e^{iφ1}, e^{iφ2}
 	v        complex128 // e^{i(φ2−φ1)}
 	redfield int        // redfieldOff, redfieldPauli or redfieldGeneral
-	// Pauli form (see pauliLab): rf[0:36] is the 6×6 matrix K that maps
-	// x = (ρ00, ρ11, ρ22, 2Re ρ01, 2Re ρ12, 2Re ρ02) (lab frame) to the
-	// population-transfer part Q (Q00, Q11, Q22, Q01, Q12, Q02), rf[36:42]
-	// the lab-frame M (M00, M11, M22, M01, M12, M02). Both are sums over
-	// projectors on eigenstates, free of the signs and order of the
-	// eigenvectors, so they are smooth in t and can be interpolated.
+	// Pauli form (see pauliLab): rf[6a:6a+6] are the elements (00, 11, 22,
+	// 01, 12, 02) of the projector P_a = v_a·v_aᵀ on eigenstate a (ascending
+	// energy), rf[18:24] the rates 1→0, 2→0, 0→1, 2→1, 0→2, 1→2. The
+	// eigenvalues of a ladder with both couplings non-zero are distinct, so
+	// this order is kept along t, and projectors are free of the signs of
+	// the eigenvectors: rf is smooth in t and can be interpolated.
 	rf [nRF]float64
 	// general secular rule: eigenvectors, eigenvalues, S in the eigenbasis,
 	// Γ, cutoff
@@ -212,7 +212,7 @@ type coef struct {
 }
 
 // nRF is the number of reals of the Pauli form of the Redfield term.
-const nRF = 42
+const nRF = 24
 
 const (
 	redfieldOff = iota
@@ -271,37 +271,23 @@ func (s *Solver) coefAt(t float64, c *coef) {
 	// Σ_a (Σ_c rate[c][a]·p_c)·P_a − ½{M, ρ}, M = Σ_a m_a·P_a.
 	c.redfield = redfieldPauli
 	var rate [3][3]float64 // rate[c][a]: c → a
-	var mOut [3]float64
 	for i := range 3 {
 		for k := range 3 {
 			if k != i {
 				rate[i][k] = a[i][k] * a[i][k] * g[i][k]
-				mOut[i] += rate[i][k]
 			}
 		}
 	}
 	// pr[a] = (V0a², V1a², V2a², V0a·V1a, V1a·V2a, V0a·V2a): p_a = pr[a]·x,
 	// and P_a = v_a·v_aᵀ has the elements pr[a] (in the order of Q).
-	var pr [3][6]float64
+	rf := &c.rf
 	for k := range 3 {
 		v0, v1, v2 := vec[0][k], vec[1][k], vec[2][k]
-		pr[k] = [6]float64{v0 * v0, v1 * v1, v2 * v2, v0 * v1, v1 * v2, v0 * v2}
+		pr := rf[6*k : 6*k+6 : 6*k+6]
+		pr[0], pr[1], pr[2], pr[3], pr[4], pr[5] = v0*v0, v1*v1, v2*v2, v0*v1, v1*v2, v0*v2
 	}
-	// into k: Σ_c rate[c][k]·p_c = in[k]·x
-	var in [3][6]float64
-	for n := range 6 {
-		in[0][n] = rate[1][0]*pr[1][n] + rate[2][0]*pr[2][n]
-		in[1][n] = rate[0][1]*pr[0][n] + rate[2][1]*pr[2][n]
-		in[2][n] = rate[0][2]*pr[0][n] + rate[1][2]*pr[1][n]
-	}
-	rf := &c.rf
-	for i := range 6 {
-		a0, a1, a2 := pr[0][i], pr[1][i], pr[2][i]
-		for n := range 6 {
-			rf[6*i+n] = a0*in[0][n] + a1*in[1][n] + a2*in[2][n]
-		}
-		rf[36+i] = mOut[0]*a0 + mOut[1]*a1 + mOut[2]*a2
-	}
+	rf[18], rf[19], rf[20] = rate[1][0], rate[2][0], rate[0][1]
+	rf[21], rf[22], rf[23] = rate[2][1], rate[0][2], rate[1][2]
 }
 
 // rhs evaluates dy/dt at t.
@@ -401,17 +387,27 @@ func (s *Solver) deriv(c *coef, y, dy *[nY]float64) {
 //
 //	dρ = Σ_a (Σ_c rate[c→a]·p_c)·P_a − ½(M·ρ + ρ·M),  M = Σ_a m_a·P_a,
 //
-// whose first part is K·x (coef.rf). ρ is given by its diagonal p0, p1, p2
-// and upper elements r01, r12, r02; the result likewise.
+// with the projectors and rates of coef.rf. ρ is given by its diagonal p0,
+// p1, p2 and upper elements r01, r12, r02; the result likewise.
 func pauliLab(rf *[nRF]float64, p0, p1, p2 float64, r01, r12, r02 complex128) (d00, d11, d22 float64, d01, d12, d02 complex128) {
 	x0, x1, x2, x3, x4, x5 := p0, p1, p2, 2*real(r01), 2*real(r12), 2*real(r02)
+	pa, pb, pc := rf[0:6:6], rf[6:12:12], rf[12:18:18]
+	e0 := pa[0]*x0 + pa[1]*x1 + pa[2]*x2 + pa[3]*x3 + pa[4]*x4 + pa[5]*x5
+	e1 := pb[0]*x0 + pb[1]*x1 + pb[2]*x2 + pb[3]*x3 + pb[4]*x4 + pb[5]*x5
+	e2 := pc[0]*x0 + pc[1]*x1 + pc[2]*x2 + pc[3]*x3 + pc[4]*x4 + pc[5]*x5
+	r10, r20, r01r, r21, r02r, r12r := rf[18], rf[19], rf[20], rf[21], rf[22], rf[23]
+	q0 := r10*e1 + r20*e2
+	q1 := r01r*e0 + r21*e2
+	q2 := r02r*e0 + r12r*e1
+	o0, o1, o2 := r01r+r02r, r10+r12r, r20+r21 // total rates out
 	var q [6]float64
+	var mm [6]float64
 	for i := range 6 {
-		k := rf[6*i : 6*i+6 : 6*i+6]
-		q[i] = k[0]*x0 + k[1]*x1 + k[2]*x2 + k[3]*x3 + k[4]*x4 + k[5]*x5
+		q[i] = q0*pa[i] + q1*pb[i] + q2*pc[i]
+		mm[i] = o0*pa[i] + o1*pb[i] + o2*pc[i]
 	}
-	m00, m11, m22, m01, m12, m02 := rf[36], rf[37], rf[38], rf[39], rf[40], rf[41]
-	// {M, ρ}_jk = Σ_l M_jl·ρ_lk + ρ_jl·M_lk
+	m00, m11, m22, m01, m12, m02 := mm[0], mm[1], mm[2], mm[3], mm[4], mm[5]
+	// ½{M, ρ}_jk = ½Σ_l (M_jl·ρ_lk + ρ_jl·M_lk)
 	d00 = q[0] - (m00*p0 + m01*real(r01) + m02*real(r02))
 	d11 = q[1] - (m11*p1 + m01*real(r01) + m12*real(r12))
 	d22 = q[2] - (m22*p2 + m02*real(r02) + m12*real(r12))
