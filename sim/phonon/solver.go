@@ -84,8 +84,14 @@ type Solver struct {
 	steps       int
 	rejects     int
 	rhsCalls    int
-	interpSteps int  // steps whose Redfield term was interpolated at 7 stages
+	interpSteps int  // steps whose Redfield term was interpolated
+	spanSteps   int  // of those, steps interpolated over nodes of two steps
 	interpolate bool // interpolate the Redfield term where the guard allows
+	// the previous accepted step: its length and the Pauli form at its
+	// stage times 0 and c9, when both were in that form (havePrev)
+	havePrev     bool
+	prevH        float64
+	prevA, prevB [nRF]float64
 }
 
 // NewSolver returns a solver ready for use.
@@ -160,7 +166,8 @@ func (s *Solver) setup(l *model.Ladder, b *Bath) {
 	if s.bath {
 		s.sp = newSpectrum(b)
 	}
-	s.steps, s.rejects, s.rhsCalls, s.interpSteps = 0, 0, 0, 0
+	s.steps, s.rejects, s.rhsCalls, s.interpSteps, s.spanSteps = 0, 0, 0, 0, 0
+	s.havePrev = false
 }
 
 // phases returns u1 = e^{iφ1(t)} and u2 = e^{iφ2(t)}, φ_j = E_j·t + S_j·t²/2.
@@ -463,7 +470,8 @@ func scale(z complex128, r float64) complex128 { return complex(real(z)*r, imag(
 // and c11 = 1 of the step and interpolated by the quartic through them at the
 // other seven (whose c lie in [0.05, 0.66]). The coherent part is exact at
 // every stage. A guard decides per step: the cubic through 0, c4, c10, c11
-// must reproduce the exact value at c9 to rfGuard × the tolerance (1/ps);
+// must reproduce the exact value at c9 to rfGuard × the tolerance as an
+// error of the term (rfGuardOK);
 // when it does not, or when any node is not in the Pauli form, every stage is
 // exact. The quartic's own error is then smaller by about (h/T)/4 where T is
 // the time scale of the term.
@@ -502,26 +510,30 @@ func init() {
 }
 
 // stageCoefs fills s.cf[1…11] for the step from t of length h (cf[0] is the
-// coefficient set at t).
+// coefficient set at t). It first tries the nodes that span two steps (the
+// previous step's stage times 0 and c9, this step's 0, c9 and 1: two new
+// exact sets per step), then the five nodes within the step (four new), and
+// computes every stage exactly when neither passes its guard.
 func (s *Solver) stageCoefs(t, h, tol float64) {
 	cf := &s.cf
-	for _, i := range rfNodes[1:] {
-		s.coefAt(t+dopC[i]*h, &cf[i])
+	interp := s.bath && s.interpolate && cf[0].redfield == redfieldPauli
+	s.coefAt(t+dopC[9]*h, &cf[9])
+	s.coefAt(t+dopC[11]*h, &cf[11])
+	interp = interp && cf[9].redfield == redfieldPauli && cf[11].redfield == redfieldPauli
+	if interp && s.havePrev && s.spanStages(t, h, tol) {
+		return
 	}
-	ok := s.bath && s.interpolate
-	for _, i := range rfNodes {
-		ok = ok && cf[i].redfield == redfieldPauli
-	}
+	s.coefAt(t+dopC[4]*h, &cf[4])
+	s.coefAt(t+dopC[10]*h, &cf[10])
+	ok := interp && cf[4].redfield == redfieldPauli && cf[10].redfield == redfieldPauli
 	if ok {
-		lim := rfGuard * tol
 		r0, r1, r2, r3, r4 := &cf[0].rf, &cf[4].rf, &cf[9].rf, &cf[10].rf, &cf[11].rf
 		g0, g1, g3, g4 := rfGuardW[0], rfGuardW[1], rfGuardW[3], rfGuardW[4]
+		var d [nRF]float64
 		for n := range nRF {
-			if d := g0*r0[n] + g1*r1[n] + g3*r3[n] + g4*r4[n] - r2[n]; !(math.Abs(d) <= lim) {
-				ok = false
-				break
-			}
+			d[n] = g0*r0[n] + g1*r1[n] + g3*r3[n] + g4*r4[n] - r2[n]
 		}
+		ok = rfGuardOK(&d, r0, r4, tol)
 	}
 	if !ok {
 		for _, i := range rfInterp {
@@ -542,6 +554,85 @@ func (s *Solver) stageCoefs(t, h, tol float64) {
 		}
 	}
 }
+
+// spanStages interpolates the Redfield term at stages 1–8 and 10 by the
+// quartic through the previous step's stage times 0 and c9 (at t − h' and
+// t − 0.4h') and this step's 0, c9 and 1, when the cubic through all but
+// the node at t − 0.4h' reproduces it there to rfGuard × tol. It reports
+// whether it did.
+func (s *Solver) spanStages(t, h, tol float64) bool {
+	cf := &s.cf
+	rho := s.prevH / h
+	x := [5]float64{-rho, -(1 - dopC[9]) * rho, 0, dopC[9], 1}
+	r := [5]*[nRF]float64{&s.prevA, &s.prevB, &cf[0].rf, &cf[9].rf, &cf[11].rf}
+	// guard: cubic through nodes 0, 2, 3, 4 at x[1]
+	var gw [5]float64
+	for _, n := range [4]int{0, 2, 3, 4} {
+		w := 1.0
+		for _, m := range [4]int{0, 2, 3, 4} {
+			if m != n {
+				w *= (x[1] - x[m]) / (x[n] - x[m])
+			}
+		}
+		gw[n] = w
+	}
+	var d [nRF]float64
+	for n := range nRF {
+		d[n] = gw[0]*r[0][n] + gw[2]*r[2][n] + gw[3]*r[3][n] + gw[4]*r[4][n] - r[1][n]
+	}
+	if !rfGuardOK(&d, r[2], r[4], tol) {
+		return false
+	}
+	s.interpSteps++
+	s.spanSteps++
+	for _, i := range spanInterp {
+		ci := dopC[i]
+		var w [5]float64
+		for n := range 5 {
+			wn := 1.0
+			for m := range 5 {
+				if m != n {
+					wn *= (ci - x[m]) / (x[n] - x[m])
+				}
+			}
+			w[n] = wn
+		}
+		c := &cf[i]
+		s.coherentAt(t+ci*h, c)
+		c.redfield = redfieldPauli
+		r0, r1, r2, r3, r4 := r[0], r[1], r[2], r[3], r[4]
+		for n := range nRF {
+			c.rf[n] = w[0]*r0[n] + w[1]*r1[n] + w[2]*r2[n] + w[3]*r3[n] + w[4]*r4[n]
+		}
+	}
+	return true
+}
+
+// rfGuardOK reports whether the guard's differences d (interpolant minus
+// exact value at the check node) are within rfGuard × tol as errors of the
+// Redfield term: a rate's difference as it is (1/ps), a projector element's
+// times the largest rate at the nodes a and b.
+func rfGuardOK(d, a, b *[nRF]float64, tol float64) bool {
+	var rmax float64
+	for n := 18; n < nRF; n++ {
+		rmax = max(rmax, math.Abs(a[n]), math.Abs(b[n]))
+	}
+	lim := rfGuard * tol
+	for n := range 18 {
+		if !(math.Abs(d[n])*rmax <= lim) {
+			return false
+		}
+	}
+	for n := 18; n < nRF; n++ {
+		if !(math.Abs(d[n]) <= lim) {
+			return false
+		}
+	}
+	return true
+}
+
+// spanInterp are the stages spanStages interpolates.
+var spanInterp = [9]int{1, 2, 3, 4, 5, 6, 7, 8, 10}
 
 // integrate advances s.y from t0 to t1 with DOP853 steps (12 evaluations of
 // the right-hand side per step) and Hairer's step-size rule for it: the
@@ -593,6 +684,10 @@ func (s *Solver) integrate(t0, t1, maxStep, tol float64) error {
 			*y = *yn
 			if last {
 				return nil
+			}
+			s.havePrev = cf[0].redfield == redfieldPauli && cf[9].redfield == redfieldPauli
+			if s.havePrev {
+				s.prevH, s.prevA, s.prevB = h, cf[0].rf, cf[9].rf
 			}
 			// dopC[11] = 1: the last stage was at t+h, the new t
 			cf[0] = cf[11]
