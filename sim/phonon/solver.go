@@ -585,17 +585,27 @@ func (s *Solver) spanStages(t, h, tol float64) bool {
 	}
 	s.interpSteps++
 	s.spanSteps++
+	// Lagrange weights w_n(c) = Π_{m≠n}(c − x_m) / Π_{m≠n}(x_n − x_m)
+	var inv [5]float64
+	for n := range 5 {
+		den := 1.0
+		for m := range 5 {
+			if m != n {
+				den *= x[n] - x[m]
+			}
+		}
+		inv[n] = 1 / den
+	}
 	for _, i := range spanInterp {
 		ci := dopC[i]
-		var w [5]float64
-		for n := range 5 {
-			wn := 1.0
-			for m := range 5 {
-				if m != n {
-					wn *= (ci - x[m]) / (x[n] - x[m])
-				}
-			}
-			w[n] = wn
+		d0, d1, d2, d3, d4 := ci-x[0], ci-x[1], ci-x[2], ci-x[3], ci-x[4]
+		d01, d34 := d0*d1, d3*d4
+		w := [5]float64{
+			d1 * d2 * d34 * inv[0],
+			d0 * d2 * d34 * inv[1],
+			d01 * d34 * inv[2],
+			d01 * d2 * d4 * inv[3],
+			d01 * d2 * d3 * inv[4],
 		}
 		c := &cf[i]
 		s.coherentAt(t+ci*h, c)
