@@ -112,9 +112,9 @@ func combine(h, tol float64, y, yn *[nY]float64, k *[12][nY]float64) float64 {
 		yn[q] = y[q] + h*(b0*x0+b5*x5+b6*x6+b7*x7+b8*x8+b9*x9+b10*x10+b11*x11)
 		d5 := e0*x0 + e5*x5 + e6*x6 + e7*x7 + e8*x8 + e9*x9 + e10*x10 + e11*x11
 		d3 := f0*x0 + f5*x5 + f6*x6 + f7*x7 + f8*x8 + f9*x9 + f10*x10 + f11*x11
-		sc := tol + tol*math.Max(math.Abs(y[q]), math.Abs(yn[q]))
-		d5 /= sc
-		d3 /= sc
+		isc := 1 / (tol + tol*math.Max(math.Abs(y[q]), math.Abs(yn[q])))
+		d5 *= isc
+		d3 *= isc
 		s5 += d5 * d5
 		s3 += d3 * d3
 	}
