@@ -107,7 +107,13 @@ func ladderEig(d1, d2, a, b float64, e *[3]float64, v *[3][3]float64) {
 	lmin := q + 2*p*(-0.5*cs-h3*sn)
 	lmid := 3*q - lmax - lmin
 	l := [3]float64{lmin, lmid, lmax}
+	// The arccos is ill-conditioned only near a double root (r → ±1); away
+	// from one the trigonometric values are accurate to rounding.
+	polish := math.Min(lmid-lmin, lmax-lmid) < 1e-2*p
 	for k := range l {
+		if !polish {
+			break
+		}
 		x := l[k]
 		// f(λ) = det(H − λ) = −λ·[(d1−λ)(d2−λ) − b²] − a²·(d2−λ)
 		u, w := d1-x, d2-x

@@ -71,6 +71,8 @@ type Solver struct {
 
 	// problem
 	env            model.Envelope
+	gauss          bool    // env is a model.Pulse: Ω = peak·exp(−t²·inv2Tau2), inlined
+	peak, inv2Tau2 float64 // of that pulse
 	e1, s1, e2, s2 float64 // diagonal of H: E_j + S_j·t, rad/ps
 	k01, k12       float64 // couplings of Ω/2 on the two links
 	g1, g2         float64 // radiative decay X→G, XX→X, 1/ps
@@ -158,6 +160,12 @@ func (s *Solver) solveLadder(l *model.Ladder, b *Bath, tol float64) (endState, e
 
 func (s *Solver) setup(l *model.Ladder, b *Bath) {
 	s.env = l.Envelope
+	s.gauss = false
+	if pu, ok := l.Envelope.(model.Pulse); ok {
+		// the same expression as model.Pulse.RabiAt, without the interface call
+		tau := pu.TauPS()
+		s.gauss, s.peak, s.inv2Tau2 = true, pu.PeakRabi(), 1/(2*tau*tau)
+	}
 	s.e1, s.s1 = l.EnergyRadPS[1], l.SweepRadPS2[1]
 	s.e2, s.s2 = l.EnergyRadPS[2], l.SweepRadPS2[2]
 	s.k01, s.k12 = l.Coupling[0], l.Coupling[1]
@@ -205,7 +213,8 @@ type coef struct {
 	redfield int        // redfieldOff, redfieldPauli or redfieldGeneral
 	// Pauli form (see pauliLab): rf[6a:6a+6] are the elements (00, 11, 22,
 	// 01, 12, 02) of the projector P_a = v_a·v_aᵀ on eigenstate a (ascending
-	// energy), rf[18:24] the rates 1→0, 2→0, 0→1, 2→1, 0→2, 1→2. The
+	// energy) for a = 0, 1 (P_2 = 1 − P_0 − P_1), rf[12:18] the rates 1→0,
+	// 2→0, 0→1, 2→1, 0→2, 1→2. The
 	// eigenvalues of a ladder with both couplings non-zero are distinct, so
 	// this order is kept along t, and projectors are free of the signs of
 	// the eigenvectors: rf is smooth in t and can be interpolated.
@@ -219,7 +228,10 @@ type coef struct {
 }
 
 // nRF is the number of reals of the Pauli form of the Redfield term.
-const nRF = 24
+const nRF = 18
+
+// nProj is the number of projector elements at the start of coef.rf.
+const nProj = 12
 
 const (
 	redfieldOff = iota
@@ -230,7 +242,12 @@ const (
 // coherentAt fills the coherent part of c (Ω/2 and the phase factors) for
 // time t and returns Ω(t).
 func (s *Solver) coherentAt(t float64, c *coef) float64 {
-	om := s.env.RabiAt(t)
+	var om float64
+	if s.gauss {
+		om = s.peak * math.Exp(-t*t*s.inv2Tau2)
+	} else {
+		om = s.env.RabiAt(t)
+	}
 	c.w = 0.5 * om
 	c.u1, c.u2 = s.phases(t)
 	c.v = c.u2 * conj(c.u1)
@@ -288,13 +305,13 @@ func (s *Solver) coefAt(t float64, c *coef) {
 	// pr[a] = (V0a², V1a², V2a², V0a·V1a, V1a·V2a, V0a·V2a): p_a = pr[a]·x,
 	// and P_a = v_a·v_aᵀ has the elements pr[a] (in the order of Q).
 	rf := &c.rf
-	for k := range 3 {
+	for k := range 2 {
 		v0, v1, v2 := vec[0][k], vec[1][k], vec[2][k]
 		pr := rf[6*k : 6*k+6 : 6*k+6]
 		pr[0], pr[1], pr[2], pr[3], pr[4], pr[5] = v0*v0, v1*v1, v2*v2, v0*v1, v1*v2, v0*v2
 	}
-	rf[18], rf[19], rf[20] = rate[1][0], rate[2][0], rate[0][1]
-	rf[21], rf[22], rf[23] = rate[2][1], rate[0][2], rate[1][2]
+	rf[12], rf[13], rf[14] = rate[1][0], rate[2][0], rate[0][1]
+	rf[15], rf[16], rf[17] = rate[2][1], rate[0][2], rate[1][2]
 }
 
 // rhs evaluates dy/dt at t.
@@ -398,11 +415,12 @@ func (s *Solver) deriv(c *coef, y, dy *[nY]float64) {
 // p1, p2 and upper elements r01, r12, r02; the result likewise.
 func pauliLab(rf *[nRF]float64, p0, p1, p2 float64, r01, r12, r02 complex128) (d00, d11, d22 float64, d01, d12, d02 complex128) {
 	x0, x1, x2, x3, x4, x5 := p0, p1, p2, 2*real(r01), 2*real(r12), 2*real(r02)
-	pa, pb, pc := rf[0:6:6], rf[6:12:12], rf[12:18:18]
+	pa, pb := rf[0:6:6], rf[6:12:12]
+	pc := [6]float64{1 - pa[0] - pb[0], 1 - pa[1] - pb[1], 1 - pa[2] - pb[2], -pa[3] - pb[3], -pa[4] - pb[4], -pa[5] - pb[5]}
 	e0 := pa[0]*x0 + pa[1]*x1 + pa[2]*x2 + pa[3]*x3 + pa[4]*x4 + pa[5]*x5
 	e1 := pb[0]*x0 + pb[1]*x1 + pb[2]*x2 + pb[3]*x3 + pb[4]*x4 + pb[5]*x5
 	e2 := pc[0]*x0 + pc[1]*x1 + pc[2]*x2 + pc[3]*x3 + pc[4]*x4 + pc[5]*x5
-	r10, r20, r01r, r21, r02r, r12r := rf[18], rf[19], rf[20], rf[21], rf[22], rf[23]
+	r10, r20, r01r, r21, r02r, r12r := rf[12], rf[13], rf[14], rf[15], rf[16], rf[17]
 	q0 := r10*e1 + r20*e2
 	q1 := r01r*e0 + r21*e2
 	q2 := r02r*e0 + r12r*e1
@@ -627,16 +645,16 @@ func (s *Solver) spanStages(t, h, tol float64) bool {
 // times the largest rate at the nodes a and b.
 func rfGuardOK(d, a, b *[nRF]float64, tol float64) bool {
 	var rmax float64
-	for n := 18; n < nRF; n++ {
+	for n := nProj; n < nRF; n++ {
 		rmax = max(rmax, math.Abs(a[n]), math.Abs(b[n]))
 	}
 	lim := rfGuard * tol
-	for n := range 18 {
+	for n := range nProj {
 		if !(math.Abs(d[n])*rmax <= lim) {
 			return false
 		}
 	}
-	for n := 18; n < nRF; n++ {
+	for n := nProj; n < nRF; n++ {
 		if !(math.Abs(d[n]) <= lim) {
 			return false
 		}
