@@ -48,6 +48,10 @@ func BenchmarkDemoPoint(b *testing.B) {
 		}
 	}
 	b.ReportMetric(float64(s.steps), "steps")
+	// how often the Redfield term was computed exactly (out of 12 stages per
+	// step) and on how many steps it was interpolated
+	b.ReportMetric(float64(s.exactSets)/float64(s.steps), "exact-sets/step")
+	b.ReportMetric(float64(s.interpSteps), "interp-steps")
 	b.ReportMetric((cpuSeconds()-cpu0)*1e3/float64(b.N), "cpu-ms/op")
 	b.ReportAllocs()
 }

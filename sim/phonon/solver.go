@@ -88,6 +88,7 @@ type Solver struct {
 	rhsCalls    int
 	interpSteps int  // steps whose Redfield term was interpolated
 	spanSteps   int  // of those, steps interpolated over nodes of two steps
+	exactSets   int  // coefficient sets with the Redfield term computed exactly
 	interpolate bool // interpolate the Redfield term where the guard allows
 	// the previous accepted step: its length and the Pauli form at its
 	// stage times 0 and c9, when both were in that form (havePrev)
@@ -174,7 +175,7 @@ func (s *Solver) setup(l *model.Ladder, b *Bath) {
 	if s.bath {
 		s.sp = newSpectrum(b)
 	}
-	s.steps, s.rejects, s.rhsCalls, s.interpSteps, s.spanSteps = 0, 0, 0, 0, 0
+	s.steps, s.rejects, s.rhsCalls, s.interpSteps, s.spanSteps, s.exactSets = 0, 0, 0, 0, 0, 0
 	s.havePrev = false
 }
 
@@ -261,6 +262,7 @@ func (s *Solver) coefAt(t float64, c *coef) {
 	if !s.bath || !(om > rabiFloorRadPS) {
 		return
 	}
+	s.exactSets++
 	vec := &c.vec
 	ladderEig(s.e1+s.s1*t, s.e2+s.s2*t, -s.k01*c.w, -s.k12*c.w, &c.e, vec)
 	// A = Vᵀ·S·V with S = diag(0, 1, 2).
