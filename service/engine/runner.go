@@ -433,6 +433,12 @@ func (e *Engine) setFixed(ctx context.Context, r *run, last *plan.Target) error 
 // command sets every instrument whose target changed, in parallel, and
 // returns when all have arrived.
 func (e *Engine) command(ctx context.Context, pl *plan.Plan, t plan.Target, last *plan.Target) error {
+	changed := func(a, b *float64) bool { return a != nil && !same(a, b) }
+	if !changed(t.StageMM, last.StageMM) && !changed(t.AngleDeg, last.AngleDeg) &&
+		!changed(t.DetuningMeV, last.DetuningMeV) && !changed(t.TemperatureK, last.TemperatureK) {
+		last.Merge(t) // nothing to move (a repeated setting)
+		return nil
+	}
 	g, gctx := errgroup.WithContext(ctx)
 	b := e.bench
 	if t.StageMM != nil && !same(t.StageMM, last.StageMM) {
