@@ -334,31 +334,38 @@ func (s *Solver) deriv(c *coef, y, dy *[nY]float64) {
 	c12 := complex(y[5], y[6])
 	c02 := complex(y[7], y[8])
 
-	// Interaction-picture coupling Ṽ_01 = −k01·w·e^{−iφ1}, Ṽ_12 = −k12·w·e^{−i(φ2−φ1)}.
-	v01 := complex(-s.k01*w, 0) * conj(u1)
-	v12 := complex(-s.k12*w, 0) * conj(v)
-	v10, v21 := conj(v01), conj(v12)
-	// dρ̃/dt = −i[Ṽ, ρ̃] (Ṽ has zero diagonal and no 0–2 element).
-	// (Ṽρ̃)_jk rows:
-	//   row0: v01·ρ1k ; row1: v10·ρ0k + v12·ρ2k ; row2: v21·ρ1k
-	c10, c21, c20 := conj(c01), conj(c12), conj(c02)
-	vr00 := v01 * c10
-	vr01 := v01 * complex(p1, 0)
-	vr02 := v01 * c12
-	vr11 := v10*c01 + v12*c21
-	vr12 := v10*c02 + v12*complex(p2, 0)
-	vr22 := v21 * c12
-	vr10 := v10*complex(p0, 0) + v12*c20
-	vr20 := v21 * c10
-	vr21 := v21 * complex(p1, 0)
-	mi := complex(0, -1)
-	// dρ_jk = −i((Ṽρ̃)_jk − conj((Ṽρ̃)_kj))
-	d00 := 2 * imag(vr00)
-	d11 := 2 * imag(vr11)
-	d22 := 2 * imag(vr22)
-	d01 := mi * (vr01 - conj(vr10))
-	d12 := mi * (vr12 - conj(vr21))
-	d02 := mi * (vr02 - conj(vr20))
+	// Interaction-picture coupling Ṽ_01 = A = −k01·w·e^{−iφ1},
+	// Ṽ_12 = B = −k12·w·e^{−i(φ2−φ1)}; dρ̃/dt = −i[Ṽ, ρ̃] written out (Ṽ has
+	// zero diagonal and no 0–2 element):
+	//
+	//	dρ00 = 2 Im(A·ρ01*),  dρ22 = −2 Im(B·ρ12*),  dρ11 = −dρ00 − dρ22,
+	//	dρ01 = −i(A·(ρ11 − ρ00) − B*·ρ02),  dρ12 = −i(B·(ρ22 − ρ11) + A*·ρ02),
+	//	dρ02 = −i(A·ρ12 − B·ρ01).
+	ka, kb := -s.k01*w, -s.k12*w
+	ar, ai := ka*real(u1), -ka*imag(u1)
+	br, bi := kb*real(v), -kb*imag(v)
+	x01r, x01i := y[3], y[4]
+	x12r, x12i := y[5], y[6]
+	x02r, x02i := y[7], y[8]
+	// Im(A·ρ01*) and Im(B·ρ12*)
+	ia := ai*x01r - ar*x01i
+	ib := bi*x12r - br*x12i
+	d00 := 2 * ia
+	d22 := -2 * ib
+	d11 := -d00 - d22
+	// z01 = A·(p1 − p0) − B*·ρ02, dρ01 = −i·z01 = (Im z01, −Re z01)
+	q10, q21 := p1-p0, p2-p1
+	z01r := ar*q10 - (br*x02r + bi*x02i)
+	z01i := ai*q10 - (br*x02i - bi*x02r)
+	// z12 = B·(p2 − p1) + A*·ρ02
+	z12r := br*q21 + (ar*x02r + ai*x02i)
+	z12i := bi*q21 + (ar*x02i - ai*x02r)
+	// z02 = A·ρ12 − B·ρ01
+	z02r := (ar*x12r - ai*x12i) - (br*x01r - bi*x01i)
+	z02i := (ar*x12i + ai*x12r) - (br*x01i + bi*x01r)
+	d01 := complex(z01i, -z01r)
+	d12 := complex(z12i, -z12r)
+	d02 := complex(z02i, -z02r)
 
 	// Radiative decay (Lindblad, same form in the interaction picture).
 	d00 += s.g1 * p1

@@ -2,6 +2,7 @@ package phonon
 
 import (
 	"math"
+	"math/cmplx"
 	"math/rand/v2"
 	"testing"
 )
@@ -185,5 +186,85 @@ func TestPauliLabMatchesTensor(t *testing.T) {
 	}
 	if checked < 300 {
 		t.Errorf("only %d of 400 times in the Pauli form", checked)
+	}
+}
+
+// TestDerivMatchesMatrixForm: the written-out right-hand side without the
+// bath equals −i[Ṽ, ρ̃] + Σ_k (L_k ρ̃ L_k† − ½{L_k†L_k, ρ̃}) evaluated with
+// plain 3×3 complex matrix products (Ṽ_01 = −k01·Ω/2·e^{−iφ1},
+// Ṽ_12 = −k12·Ω/2·e^{−i(φ2−φ1)}, L_1 = √γ1|0⟩⟨1|, L_2 = √γ2|1⟩⟨2|), for
+// random states and times.
+func TestDerivMatchesMatrixForm(t *testing.T) {
+	rng := rand.New(rand.NewPCG(9, 10))
+	p := demoAt(15, 7)
+	l := p.Ladder()
+	s := NewSolver()
+	s.setup(&l, nil)
+	mul := func(a, b [3][3]complex128) (c [3][3]complex128) {
+		for i := range 3 {
+			for j := range 3 {
+				for k := range 3 {
+					c[i][j] += a[i][k] * b[k][j]
+				}
+			}
+		}
+		return
+	}
+	dag := func(a [3][3]complex128) (c [3][3]complex128) {
+		for i := range 3 {
+			for j := range 3 {
+				c[i][j] = conj(a[j][i])
+			}
+		}
+		return
+	}
+	for range 300 {
+		tt := l.StartPS + (l.EndPS-l.StartPS)*rng.Float64()
+		var c coef
+		s.coefAt(tt, &c)
+		var y, dy [nY]float64
+		for q := range 9 {
+			y[q] = rng.NormFloat64()
+		}
+		s.deriv(&c, &y, &dy)
+		rho := [3][3]complex128{
+			{complex(y[0], 0), complex(y[3], y[4]), complex(y[7], y[8])},
+			{complex(y[3], -y[4]), complex(y[1], 0), complex(y[5], y[6])},
+			{complex(y[7], -y[8]), complex(y[5], -y[6]), complex(y[2], 0)},
+		}
+		w := 0.5 * l.Envelope.RabiAt(tt)
+		u1 := cmplx.Exp(complex(0, l.Phase(1, tt)))
+		v := cmplx.Exp(complex(0, l.Phase(2, tt)-l.Phase(1, tt)))
+		var vt [3][3]complex128
+		vt[0][1] = complex(-l.Coupling[0]*w, 0) * conj(u1)
+		vt[1][2] = complex(-l.Coupling[1]*w, 0) * conj(v)
+		vt[1][0], vt[2][1] = conj(vt[0][1]), conj(vt[1][2])
+		a, b := mul(vt, rho), mul(rho, vt)
+		var want [3][3]complex128
+		for i := range 3 {
+			for j := range 3 {
+				want[i][j] = complex(0, -1) * (a[i][j] - b[i][j])
+			}
+		}
+		for k, g := range l.DecayPerPS {
+			var lk [3][3]complex128
+			lk[k][k+1] = complex(math.Sqrt(g), 0)
+			lr := mul(mul(lk, rho), dag(lk))
+			ll := mul(dag(lk), lk)
+			x, z := mul(ll, rho), mul(rho, ll)
+			for i := range 3 {
+				for j := range 3 {
+					want[i][j] += lr[i][j] - 0.5*(x[i][j]+z[i][j])
+				}
+			}
+		}
+		got := [9]float64{dy[0], dy[1], dy[2], dy[3], dy[4], dy[5], dy[6], dy[7], dy[8]}
+		ref := [9]float64{real(want[0][0]), real(want[1][1]), real(want[2][2]),
+			real(want[0][1]), imag(want[0][1]), real(want[1][2]), imag(want[1][2]), real(want[0][2]), imag(want[0][2])}
+		for q := range got {
+			if d := math.Abs(got[q] - ref[q]); d > 1e-12*(1+math.Abs(ref[q])) {
+				t.Fatalf("t %.3f ps component %d: %.15g, matrix form %.15g", tt, q, got[q], ref[q])
+			}
+		}
 	}
 }
