@@ -61,7 +61,7 @@ def main():
     ap = argparse.ArgumentParser(description=__doc__,
                                  formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--cases", default="2,3,4,10")
-    ap.add_argument("--benchtime", default="20x")
+    ap.add_argument("--benchtime", default="200x")
     args = ap.parse_args()
     idx = [int(s) for s in args.cases.split(",")]
     with open(bg.GOLDEN) as f:
