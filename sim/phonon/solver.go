@@ -493,15 +493,16 @@ func scale(z complex128, r float64) complex128 { return complex(real(z)*r, imag(
 // Stages whose Redfield term is interpolated. The Pauli form of the term
 // (coef.rf) is a smooth function of t on the time scale of the change of
 // H(t)'s eigenvectors and gaps, which is long against a step wherever the
-// phonons matter; it is computed exactly at the stage times 0, c4, c9, c10
-// and c11 = 1 of the step and interpolated by the quartic through them at the
-// other seven (whose c lie in [0.05, 0.66]). The coherent part is exact at
-// every stage. A guard decides per step: the cubic through 0, c4, c10, c11
-// must reproduce the exact value at c9 to rfGuard × the tolerance as an
-// error of the term (rfGuardOK);
-// when it does not, or when any node is not in the Pauli form, every stage is
-// exact. The quartic's own error is then smaller by about (h/T)/4 where T is
-// the time scale of the term.
+// phonons matter. stageCoefs first tries nodes spanning two steps (see
+// spanStages: two new exact sets per step). Failing that, it computes the
+// term exactly at the stage times 0, c4, c9, c10 and c11 = 1 of the step and
+// interpolates it by the quartic through them at the other seven (whose c
+// lie in [0.05, 0.66]). The coherent part is exact at every stage. A guard
+// decides per step: here the cubic through 0, c4, c10, c11 must reproduce
+// the exact value at c9 to rfGuard × the tolerance as an error of the term
+// (rfGuardOK); when it does not, or when any node is not in the Pauli form,
+// every stage is exact. The quartic's own error is then smaller by about
+// (h/T)/4, T the time scale of the term.
 var (
 	rfNodes  = [5]int{0, 4, 9, 10, 11}
 	rfInterp = [7]int{1, 2, 3, 5, 6, 7, 8}
