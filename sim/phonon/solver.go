@@ -425,21 +425,27 @@ func (s *Solver) deriv(c *coef, y, dy *[nY]float64) {
 func pauliLab(rf *[nRF]float64, p0, p1, p2 float64, r01, r12, r02 complex128) (d00, d11, d22 float64, d01, d12, d02 complex128) {
 	x0, x1, x2, x3, x4, x5 := p0, p1, p2, 2*real(r01), 2*real(r12), 2*real(r02)
 	pa, pb := rf[0:6:6], rf[6:12:12]
-	pc := [6]float64{1 - pa[0] - pb[0], 1 - pa[1] - pb[1], 1 - pa[2] - pb[2], -pa[3] - pb[3], -pa[4] - pb[4], -pa[5] - pb[5]}
 	e0 := pa[0]*x0 + pa[1]*x1 + pa[2]*x2 + pa[3]*x3 + pa[4]*x4 + pa[5]*x5
 	e1 := pb[0]*x0 + pb[1]*x1 + pb[2]*x2 + pb[3]*x3 + pb[4]*x4 + pb[5]*x5
-	e2 := pc[0]*x0 + pc[1]*x1 + pc[2]*x2 + pc[3]*x3 + pc[4]*x4 + pc[5]*x5
+	e2 := p0 + p1 + p2 - e0 - e1 // P_2 = 1 − P_0 − P_1
 	r10, r20, r01r, r21, r02r, r12r := rf[12], rf[13], rf[14], rf[15], rf[16], rf[17]
 	q0 := r10*e1 + r20*e2
 	q1 := r01r*e0 + r21*e2
 	q2 := r02r*e0 + r12r*e1
 	o0, o1, o2 := r01r+r02r, r10+r12r, r20+r21 // total rates out
-	var q [6]float64
-	var mm [6]float64
+	// Σ_a f_a·P_a = f_2·1 + (f_0 − f_2)·P_0 + (f_1 − f_2)·P_1
+	qa, qb, oa, ob := q0-q2, q1-q2, o0-o2, o1-o2
+	var q, mm [6]float64
 	for i := range 6 {
-		q[i] = q0*pa[i] + q1*pb[i] + q2*pc[i]
-		mm[i] = o0*pa[i] + o1*pb[i] + o2*pc[i]
+		q[i] = qa*pa[i] + qb*pb[i]
+		mm[i] = oa*pa[i] + ob*pb[i]
 	}
+	q[0] += q2
+	q[1] += q2
+	q[2] += q2
+	mm[0] += o2
+	mm[1] += o2
+	mm[2] += o2
 	m00, m11, m22, m01, m12, m02 := mm[0], mm[1], mm[2], mm[3], mm[4], mm[5]
 	// ½{M, ρ}_jk = ½Σ_l (M_jl·ρ_lk + ρ_jl·M_lk)
 	d00 = q[0] - (m00*p0 + m01*real(r01) + m02*real(r02))
