@@ -66,3 +66,32 @@ func BenchmarkRHSPieces(b *testing.B) {
 		}
 	})
 }
+
+// BenchmarkDemoPointParts splits the cost of BenchmarkDemoPoint's point:
+// "coherent" is this package's integrator with the bath off (the coherent
+// part and the radiative decay only: the floor of the method at this step
+// count), "exact" has the Redfield term computed exactly at every stage
+// (interpolation off), "full" is the solver as used.
+func BenchmarkDemoPointParts(b *testing.B) {
+	p := model.DemoParams()
+	p.GDDPS2, p.AreaPi = 20, 10
+	l := p.Ladder()
+	bath := DemoBath()
+	for _, part := range []struct {
+		name   string
+		bath   *Bath
+		interp bool
+	}{{"coherent", nil, true}, {"exact", &bath, false}, {"full", &bath, true}} {
+		b.Run(part.name, func(b *testing.B) {
+			s := NewSolver()
+			s.interpolate = part.interp
+			for b.Loop() {
+				if _, err := s.solveLadder(&l, part.bath, DefaultTolerance); err != nil {
+					b.Fatal(err)
+				}
+			}
+			b.ReportMetric(float64(s.steps), "steps")
+			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/float64(s.steps), "ns/step")
+		})
+	}
+}

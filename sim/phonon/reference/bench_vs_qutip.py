@@ -22,6 +22,12 @@ import sys
 import tempfile
 import time
 
+# One thread for the numerical libraries under QuTiP: the problem is 3×3, and
+# idle BLAS/OpenMP workers left spinning would take the CPU from the Go
+# benchmark that this script runs afterwards on the same machine.
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
 HERE = os.path.dirname(os.path.abspath(__file__))
 sys.dont_write_bytecode = True  # no __pycache__ in the repository
 sys.path.insert(0, HERE)
