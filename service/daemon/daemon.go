@@ -194,6 +194,8 @@ func Start(ctx context.Context, cfg Config) (*Daemon, error) {
 	hs.SetServingStatus(glissv1.ScanService_ServiceDesc.ServiceName, healthpb.HealthCheckResponse_SERVING)
 	hs.SetServingStatus(glissv1.BenchService_ServiceDesc.ServiceName, healthpb.HealthCheckResponse_SERVING)
 	hs.SetServingStatus(glissv1.AuditService_ServiceDesc.ServiceName, healthpb.HealthCheckResponse_SERVING)
+	hs.SetServingStatus(glissv1.CalibrationService_ServiceDesc.ServiceName, healthpb.HealthCheckResponse_SERVING)
+	hs.SetServingStatus(glissv1.AnalysisService_ServiceDesc.ServiceName, healthpb.HealthCheckResponse_SERVING)
 	reflection.Register(srv)
 
 	ectx, cancel := context.WithCancel(context.WithoutCancel(ctx))

@@ -440,6 +440,10 @@ func (e *Engine) requeueStored(ctx context.Context, id, reason string) (*glissv1
 	if rec.State != glissv1.ScanState_SCAN_STATE_INTERRUPTED {
 		return nil, fmt.Errorf("scan %s is %s: only PAUSED or INTERRUPTED scans can be resumed: %w", id, short(rec.State), ErrState)
 	}
+	if rec.ReplayOf != "" {
+		// A replay runs on a simulated bench of its own, never on this one.
+		return nil, fmt.Errorf("scan %s is a replay of %s and cannot be resumed on the bench %q: replay %s again (gliss scan replay %s): %w", id, rec.ReplayOf, e.bench.Name, rec.ReplayOf, rec.ReplayOf, ErrState)
+	}
 	p, err := plan.New(rec.Spec, e.bench)
 	if err != nil {
 		return nil, fmt.Errorf("scan %s no longer fits the bench %q: %v: %w", id, e.bench.Name, err, ErrState)

@@ -13,7 +13,6 @@ import (
 
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
 	"github.com/gliss-lab/gliss/drivers"
-	"github.com/gliss-lab/gliss/drivers/calib"
 	"github.com/gliss-lab/gliss/service/plan"
 )
 
@@ -425,9 +424,52 @@ func (e *Engine) setFixed(ctx context.Context, r *run, last *plan.Target) error 
 	if err := r.plan.Check(t); err != nil {
 		return err
 	}
-	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout)
+	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout+e.tempBudget(r.plan, t))
 	defer cancel()
 	return e.command(pctx, r.plan, t, last)
+}
+
+// tempBudget is the extra time a point may take when it changes the
+// temperature setpoint: the stability wait's timeout and hold.
+func (e *Engine) tempBudget(p *plan.Plan, t plan.Target) time.Duration {
+	if t.TemperatureK == nil {
+		return 0
+	}
+	return e.bench.Scale(p.TempTimeout + p.TempHold)
+}
+
+// waitStable waits until a thermometer without a stability wait of its own
+// reads within ±tolK of setpointK for hold, polling it; after timeout it
+// fails with the reason.
+func waitStable(ctx context.Context, th drivers.Thermometer, setpointK, tolK float64, hold, timeout time.Duration) error {
+	poll := min(max(hold/10, 100*time.Millisecond), 5*time.Second)
+	start := time.Now()
+	var since time.Time
+	last := math.NaN()
+	for {
+		k, err := th.TemperatureK(ctx)
+		if err != nil {
+			return fmt.Errorf("wait for %.3f K: %w", setpointK, err)
+		}
+		last = k
+		now := time.Now()
+		if math.Abs(k-setpointK) <= tolK {
+			if since.IsZero() {
+				since = now
+			}
+			if now.Sub(since) >= hold {
+				return nil
+			}
+		} else {
+			since = time.Time{}
+		}
+		if now.Sub(start) >= timeout {
+			return fmt.Errorf("temperature %.3f K not stable within ±%g K of setpoint %g K for %v after %v", last, tolK, setpointK, hold, timeout)
+		}
+		if err := sleep(ctx, poll); err != nil {
+			return err
+		}
+	}
 }
 
 // command sets every instrument whose target changed, in parallel, and
@@ -479,10 +521,17 @@ func (e *Engine) command(ctx context.Context, pl *plan.Plan, t plan.Target, last
 			if err := th.SetSetpointK(gctx, k); err != nil {
 				return instErr(b, drivers.RoleThermometer, fmt.Errorf("thermometer %q: setpoint %.3f K: %w", name, k, err))
 			}
-			if st, ok := th.(drivers.Stabilizer); ok && pl != nil {
-				if err := st.WaitStableK(gctx, k, pl.TempToleranceK, pl.TempHold, pl.TempTimeout); err != nil {
-					return instErr(b, drivers.RoleThermometer, fmt.Errorf("thermometer %q: %w", name, err))
-				}
+			if pl == nil {
+				return nil
+			}
+			var err error
+			if st, ok := th.(drivers.Stabilizer); ok {
+				err = st.WaitStableK(gctx, k, pl.TempToleranceK, pl.TempHold, pl.TempTimeout)
+			} else {
+				err = waitStable(gctx, th, k, pl.TempToleranceK, b.Scale(pl.TempHold), b.Scale(pl.TempTimeout))
+			}
+			if err != nil {
+				return instErr(b, drivers.RoleThermometer, fmt.Errorf("thermometer %q: %w", name, err))
 			}
 			return nil
 		})
@@ -506,7 +555,7 @@ func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *plan.Tar
 		return nil, err
 	}
 	// The point is finished even when the daemon is asked to stop.
-	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout+r.plan.Gate+r.plan.Settle)
+	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout+r.plan.Gate+r.plan.Settle+e.tempBudget(r.plan, t))
 	defer cancel()
 	started := e.opts.Now()
 	if err := e.command(pctx, r.plan, t, last); err != nil {
@@ -583,7 +632,7 @@ func (e *Engine) interlockAfter(ctx context.Context, r *run, p *glissv1.Point) s
 	}
 	e.log.Warn("interlock tripped", "scan", r.rec.Id, "reason", reason)
 	if a := e.bench.Attenuator(); a != nil {
-		deg := minPowerAngleDeg(e.bench.Calibration.Attenuator, e.bench.ByRole(drivers.RoleAttenuator).Limits)
+		deg := minPowerAngleDeg(e.bench.CurrentCalibration(), e.bench.ByRole(drivers.RoleAttenuator).Limits)
 		actx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout)
 		err := a.SetAngleDeg(actx, deg)
 		cancel()
@@ -600,19 +649,36 @@ func (e *Engine) interlockAfter(ctx context.Context, r *run, p *glissv1.Point) s
 // minPowerAngleDeg is the attenuator angle of least power, through the
 // calibration, within the attenuator's angle limits: an extinction angle
 // θ0 + 45° + k·90° inside them, else the limit of lower power.
-func minPowerAngleDeg(m calib.Malus, l drivers.Limits) float64 {
+func minPowerAngleDeg(c drivers.Calibration, l drivers.Limits) float64 {
+	law := c.AttenuatorLaw()
 	lo, hi := l.AngleMinDeg, l.AngleMaxDeg
-	if !(hi > lo) { // no limits configured
-		return m.Theta0Deg + 45
+	if law.Malus != nil {
+		m := *law.Malus
+		if !(hi > lo) { // no limits configured
+			return m.Theta0Deg + 45
+		}
+		k := math.Ceil((lo - m.Theta0Deg - 45) / 90)
+		if deg := m.Theta0Deg + 45 + 90*k; deg >= lo && deg <= hi {
+			return deg
+		}
+		if m.PowerUW(lo) <= m.PowerUW(hi) {
+			return lo
+		}
+		return hi
 	}
-	k := math.Ceil((lo - m.Theta0Deg - 45) / 90)
-	if deg := m.Theta0Deg + 45 + 90*k; deg >= lo && deg <= hi {
-		return deg
+	// Any other law (ND wheel): the least power over the allowed angles.
+	if !(hi > lo) {
+		lo, hi = 0, 360
 	}
-	if m.PowerUW(lo) <= m.PowerUW(hi) {
-		return lo
+	best, bestP := lo, math.Inf(1)
+	const n = 720
+	for i := 0; i <= n; i++ {
+		deg := lo + (hi-lo)*float64(i)/n
+		if p, err := c.PowerUW(deg); err == nil && p < bestP {
+			best, bestP = deg, p
+		}
 	}
-	return hi
+	return best
 }
 
 func sleep(ctx context.Context, d time.Duration) error {
