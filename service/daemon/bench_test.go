@@ -327,21 +327,43 @@ func BenchmarkPointLatency(b *testing.B) {
 
 // BenchmarkDurableThroughput: durable points/s through the whole engine
 // (instruments, engine, store group commit, fsync) beside raw bbolt
-// writing records of the same size, one fsync per transaction of 256 and
-// of 4096 records (the store's largest batch). Rounds of the engine and of
-// raw bbolt alternate, as the disk is shared; the ratios are medians over
-// rounds. Goals: ≥ 5,000 points/s and ≥ 0.7 × raw.
+// writing records of the same size with one fsync per transaction. Goals:
+// ≥ 5,000 points/s and ≥ 0.7 × raw.
+//
+// The reference that matches "the same commit policy" is raw bbolt with the
+// batch size the store actually used: the store's writer commits whatever
+// is queued as soon as the previous commit is done (MaxDelay 0, at most
+// MaxBatch items), so its batch size is not fixed but follows from the
+// engine's speed and the commit's cost. The benchmark reads the store's
+// counters (store.Stats) around each engine run and runs raw bbolt with
+// exactly that run's mean points per commit ("bbolt_policy"). Because the
+// batch follows the producer, this ratio is near 1 whenever the engine,
+// not the store, is the bottleneck: it says how much the store costs at
+// the batches it really makes, not what bbolt could do with larger ones.
+// So the fixed 256 and 4096 (the store's MaxBatch) references stay beside
+// it: they show what bbolt reaches with larger batches, i.e. how far the
+// engine's production rate is from the disk's limit.
+//
+// Rounds alternate the engine and the three raw runs, as the disk and the
+// 2 cores are shared; every figure is a median over rounds, and each ratio
+// is the median of the per-round ratios.
 func BenchmarkDurableThroughput(b *testing.B) {
 	const n = 50000
-	_, c := benchDaemon(b, daemon.Config{Bench: quietBench(b)})
+	d, c := benchDaemon(b, daemon.Config{Bench: quietBench(b)})
 	ctx := context.Background()
-	var rates, r256, r4096, q256, q4096 []float64
+	var rates, perCommit, rPol, r256, r4096, qPol, q256, q4096 []float64
 	for i := 0; i < b.N; i++ {
+		before := d.Store.Stats()
 		sc, err := c.Submit(ctx, repeatedSpec(n))
 		if err != nil {
 			b.Fatal(err)
 		}
 		done := waitScanEnd(b, ctx, c, sc.Id)
+		after := d.Store.Stats()
+		// Items include the scan's few record updates (create, start, end),
+		// each committed at once; at 50,000 points they weigh < 0.01 %.
+		pc := float64(after.Items-before.Items) / float64(max(after.Commits-before.Commits, 1))
+		batch := max(int(pc+0.5), 1)
 		recordBytes := 0
 		for p, err := range c.Points(ctx, sc.Id, n/2) {
 			if err != nil {
@@ -351,16 +373,21 @@ func BenchmarkDurableThroughput(b *testing.B) {
 			break
 		}
 		e := scanRate(done)
+		pol := rawBolt(b, n, recordBytes, batch)
 		a, bb := rawBolt(b, n, recordBytes, 256), rawBolt(b, n, recordBytes, 4096)
-		rates, r256, r4096 = append(rates, e), append(r256, a), append(r4096, bb)
-		q256, q4096 = append(q256, e/a), append(q4096, e/bb)
+		rates, perCommit = append(rates, e), append(perCommit, pc)
+		rPol, r256, r4096 = append(rPol, pol), append(r256, a), append(r4096, bb)
+		qPol, q256, q4096 = append(qPol, e/pol), append(q256, e/a), append(q4096, e/bb)
 		if i == 0 {
 			b.ReportMetric(float64(recordBytes), "bytes/point")
 		}
 	}
 	b.ReportMetric(medianOf(rates), "points/s_engine")
+	b.ReportMetric(medianOf(perCommit), "points/commit")
+	b.ReportMetric(medianOf(rPol), "records/s_bbolt_policy")
 	b.ReportMetric(medianOf(r256), "records/s_bbolt256")
 	b.ReportMetric(medianOf(r4096), "records/s_bbolt4096")
+	b.ReportMetric(medianOf(qPol), "engine/bbolt_policy")
 	b.ReportMetric(medianOf(q256), "engine/bbolt256")
 	b.ReportMetric(medianOf(q4096), "engine/bbolt4096")
 	b.ReportMetric(0, "ns/op")

@@ -434,3 +434,18 @@ func (s *Store) view(fn func(tx *bolt.Tx) error) error {
 	}
 	return err
 }
+
+// Stats are the writer's counters since Open.
+type Stats struct {
+	// Commits is the number of write transactions committed (one fsync each).
+	Commits uint64
+	// Items is the number of items (points, record updates, audit entries)
+	// in those transactions.
+	Items uint64
+}
+
+// Stats returns the writer's counters. The two are read one after the
+// other, so while the writer runs they may straddle one commit.
+func (s *Store) Stats() Stats {
+	return Stats{Commits: s.commits.Load(), Items: s.committedItems.Load()}
+}

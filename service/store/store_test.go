@@ -431,7 +431,7 @@ func TestBatching(t *testing.T) {
 			if err := s.CreateScan(ctx, testScan("01H", "batch", 0, t0)); err != nil {
 				t.Fatal(err)
 			}
-			before := s.commits.Load()
+			before := s.Stats()
 			r := newResults()
 			for seq := uint64(0); seq < tc.points; seq++ {
 				if err := s.AppendPoint(ctx, testPoint("01H", seq), r.done(seq)); err != nil {
@@ -441,9 +441,14 @@ func TestBatching(t *testing.T) {
 			if err := s.Sync(ctx); err != nil {
 				t.Fatal(err)
 			}
-			commits := s.commits.Load() - before
+			after := s.Stats()
+			commits := after.Commits - before.Commits
 			if commits < tc.minCommits || commits > tc.maxCommits {
 				t.Fatalf("%d commits for %d points, want %d … %d", commits, tc.points, tc.minCommits, tc.maxCommits)
+			}
+			// Every point is one item (the Sync writes nothing).
+			if items := after.Items - before.Items; items != tc.points {
+				t.Fatalf("Stats: %d items committed for %d points", items, tc.points)
 			}
 			if n, _ := s.PointCount("01H"); n != tc.points {
 				t.Fatalf("%d points stored, want %d", n, tc.points)
