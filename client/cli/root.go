@@ -8,6 +8,7 @@
 package cli
 
 import (
+	"bytes"
 	"context"
 	"errors"
 	"flag"
@@ -148,13 +149,20 @@ func NewFlagSet(env *Env, group string, c *Command) *flag.FlagSet {
 	return fs
 }
 
-// Parse parses flags; a parse failure becomes a UsageError, --help returns flag.ErrHelp.
+// Parse parses flags; a parse failure becomes a UsageError of one line (the
+// full usage is printed only for --help, which returns flag.ErrHelp).
 func Parse(fs *flag.FlagSet, args []string) error {
-	if err := fs.Parse(args); err != nil {
+	out := fs.Output()
+	var buf bytes.Buffer
+	fs.SetOutput(&buf)
+	err := fs.Parse(args)
+	fs.SetOutput(out)
+	if err != nil {
 		if errors.Is(err, flag.ErrHelp) {
+			_, _ = out.Write(buf.Bytes())
 			return err
 		}
-		return &UsageError{Msg: fs.Name() + ": " + err.Error()}
+		return &UsageError{Msg: fs.Name() + ": " + err.Error() + " (see " + fs.Name() + " --help)"}
 	}
 	return nil
 }

@@ -19,6 +19,7 @@ import (
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
 	"github.com/gliss-lab/gliss/client"
 	"github.com/gliss-lab/gliss/client/npy"
+	"github.com/gliss-lab/gliss/drivers/calib"
 )
 
 const scanSummary = "scans: submit, follow, control and export"
@@ -213,9 +214,24 @@ func oneAxis(name string, kind glissv1.AxisKind) func(ctx context.Context, env *
 		gdd := fs.String("gdd-ps2", "", "GDD, ps²: the axis of a chirp sweep (FROM:TO:N or a list), else a fixed setting")
 		power := fs.String("power-uw", "", "power on the sample, µW: the axis of a power sweep, else a fixed setting")
 		det := fs.String("detuning-mev", "", "laser detuning, meV: the axis of a detuning sweep, else a fixed setting")
+		var detNM, resNM *string
+		if kind == glissv1.AxisKind_AXIS_KIND_DETUNING_MEV {
+			detNM = fs.String("detuning-nm", "", "instead of --detuning-mev: the laser's wavelength offset from the two-photon resonance, nm (FROM:TO:N or a list; + is longer, i.e. lower energy); converted exactly with E = hc/λ")
+			resNM = fs.String("resonance-nm", "785.0", "two-photon resonance wavelength for --detuning-nm, nm (the demo dot's is 785.0)")
+		}
 		cf := addCommon(fs, env)
 		if err := Parse(fs, args); err != nil {
 			return err
+		}
+		if detNM != nil && *detNM != "" {
+			if *det != "" {
+				return Usagef("gliss scan %s: give --detuning-mev or --detuning-nm, not both", name)
+			}
+			mev, err := nmToMeV(*detNM, *resNM)
+			if err != nil {
+				return err
+			}
+			*det = mev
 		}
 		axisFlag := map[glissv1.AxisKind]struct {
 			name string
@@ -257,6 +273,36 @@ func oneAxis(name string, kind glissv1.AxisKind) func(ctx context.Context, env *
 		spec := o.Spec(client.Axis(kind, vals))
 		return submitAndMaybeWatch(ctx, env, cf, spec, fields)
 	}
+}
+
+// nmToMeV converts a detuning axis given as laser wavelength offsets from
+// the two-photon resonance (nm) to per-photon detunings (meV), as a list:
+// ΔL = hc/(λres+Δλ) − hc/λres (PHYSICS.md §6).
+func nmToMeV(axis, resonance string) (string, error) {
+	res, err := strconv.ParseFloat(resonance, 64)
+	if err != nil || math.IsNaN(res) || res < 200 || res > 2000 {
+		return "", Usagef("--resonance-nm %q: give the two-photon resonance wavelength, 200 to 2000 nm", resonance)
+	}
+	var nm []float64
+	if strings.Contains(axis, ",") {
+		if nm, err = ParseList(axis); err != nil {
+			return "", Usagef("--detuning-nm %q: %v", axis, err)
+		}
+	} else {
+		from, to, n, err := ParseRange(axis)
+		if err != nil {
+			return "", Usagef("--detuning-nm %q: %v", axis, err)
+		}
+		nm = RangeValues(from, to, n)
+	}
+	parts := make([]string, len(nm))
+	for i, d := range nm {
+		if math.Abs(d) > 50 {
+			return "", Usagef("--detuning-nm %q: offset %g nm, allowed -50 to 50 nm", axis, d)
+		}
+		parts[i] = strconv.FormatFloat(calib.DetuningMeV(res+d, res), 'g', -1, 64)
+	}
+	return strings.Join(parts, ","), nil // one value parses as FROM with N = 1
 }
 
 func submitAndMaybeWatch(ctx context.Context, env *Env, cf *commonFlags, spec *glissv1.ScanSpec, fields map[string]string) error {
