@@ -88,6 +88,19 @@ type Plan struct {
 
 	cal    drivers.Calibration
 	limits benchLimits
+	// resolved holds, per axis and value, the instrument settings target
+	// would compute (see resolve): computed once in New, so that At costs
+	// no calibration arithmetic (the stretcher's asin, the Malus inverse).
+	resolved []resolvedAxis
+}
+
+// resolvedAxis is one axis's values converted to instrument settings:
+// set[j] holds the one or two settings of value j, in the order of the
+// axis kind's Target fields (see resolve); has2[j] is false when the second
+// one is absent (a stage position whose GDD the stretcher cannot give).
+type resolvedAxis struct {
+	set  [][2]float64
+	has2 []bool
 }
 
 // benchLimits gathers the limits of the bench's instruments.
@@ -286,6 +299,14 @@ func New(spec *glissv1.ScanSpec, b *drivers.Bench) (*Plan, error) {
 		return nil, inv
 	}
 	p.Points = total
+	p.resolved = make([]resolvedAxis, len(p.Axes))
+	for i, a := range p.Axes {
+		ra := resolvedAxis{set: make([][2]float64, len(a.Values)), has2: make([]bool, len(a.Values))}
+		for j, v := range a.Values {
+			ra.set[j], ra.has2[j] = p.resolve(a.Kind, v)
+		}
+		p.resolved[i] = ra
+	}
 	return p, nil
 }
 
@@ -555,6 +576,37 @@ func (p *Plan) target(k glissv1.AxisKind, v float64) Target {
 
 func ptr(v float64) *float64 { return &v }
 
+// resolve is target's arithmetic without the allocations: the settings of
+// value v in the order of fields (below), and whether the second is set.
+func (p *Plan) resolve(k glissv1.AxisKind, v float64) (set [2]float64, has2 bool) {
+	t := p.target(k, v)
+	first, second := fields(k, &t)
+	if first != nil {
+		set[0] = *first
+	}
+	if second != nil {
+		set[1], has2 = *second, true
+	}
+	return set, has2
+}
+
+// fields are the Target fields an axis kind sets: (StageMM, GDDPS2) for
+// GDD and stage axes, (AngleDeg, PowerUW) for power, angle and pulse-area
+// axes, (DetuningMeV, nil) and (TemperatureK, nil).
+func fields(k glissv1.AxisKind, t *Target) (first, second *float64) {
+	switch k {
+	case glissv1.AxisKind_AXIS_KIND_GDD_PS2, glissv1.AxisKind_AXIS_KIND_STAGE_MM:
+		return t.StageMM, t.GDDPS2
+	case glissv1.AxisKind_AXIS_KIND_POWER_UW, glissv1.AxisKind_AXIS_KIND_ANGLE_DEG, glissv1.AxisKind_AXIS_KIND_PULSE_AREA_PI:
+		return t.AngleDeg, t.PowerUW
+	case glissv1.AxisKind_AXIS_KIND_DETUNING_MEV:
+		return t.DetuningMeV, nil
+	case glissv1.AxisKind_AXIS_KIND_TEMPERATURE_K:
+		return t.TemperatureK, nil
+	}
+	return nil, nil
+}
+
 // Merge sets the fields that o sets.
 func (t *Target) Merge(o Target) {
 	if o.StageMM != nil {
@@ -603,13 +655,41 @@ func (p *Plan) Index(seq uint64, idx []uint32) []uint32 {
 }
 
 // At returns the axis values and instrument targets of point seq.
+//
+// Two allocations: idx, and one array that holds values (its first
+// len(idx) elements, capacity limited so that an append cannot reach the
+// rest) and the settings the Target points to.
 func (p *Plan) At(seq uint64) (idx []uint32, values []float64, t Target) {
-	idx = p.Index(seq, nil)
-	values = make([]float64, len(idx))
+	n := len(p.Axes)
+	idx = p.Index(seq, make([]uint32, 0, n))
+	buf := make([]float64, 3*n)
+	values = buf[:n:n]
 	for i, j := range idx {
-		v := p.Axes[i].Values[j]
-		values[i] = v
-		t.Merge(p.target(p.Axes[i].Kind, v))
+		values[i] = p.Axes[i].Values[j]
+		if i >= len(p.resolved) {
+			t.Merge(p.target(p.Axes[i].Kind, values[i])) // a Plan not made by New
+			continue
+		}
+		ra := p.resolved[i]
+		s := buf[n+2*i : n+2*i+2 : n+2*i+2]
+		s[0], s[1] = ra.set[j][0], ra.set[j][1]
+		var o Target
+		first := &s[0]
+		var second *float64
+		if ra.has2[j] {
+			second = &s[1]
+		}
+		switch p.Axes[i].Kind {
+		case glissv1.AxisKind_AXIS_KIND_GDD_PS2, glissv1.AxisKind_AXIS_KIND_STAGE_MM:
+			o.StageMM, o.GDDPS2 = first, second
+		case glissv1.AxisKind_AXIS_KIND_POWER_UW, glissv1.AxisKind_AXIS_KIND_ANGLE_DEG, glissv1.AxisKind_AXIS_KIND_PULSE_AREA_PI:
+			o.AngleDeg, o.PowerUW = first, second
+		case glissv1.AxisKind_AXIS_KIND_DETUNING_MEV:
+			o.DetuningMeV = first
+		case glissv1.AxisKind_AXIS_KIND_TEMPERATURE_K:
+			o.TemperatureK = first
+		}
+		t.Merge(o)
 	}
 	return idx, values, t
 }

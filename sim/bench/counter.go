@@ -39,6 +39,26 @@ type Counter struct {
 
 	solveMu sync.Mutex
 	solver  *phonon.Solver
+
+	// lastOp caches the operation name of the last gate length ("count for
+	// 100ms"): a scan repeats one gate, and formatting it cost a good part
+	// of a cached gate.
+	lastOp atomic.Pointer[gateOp]
+}
+
+type gateOp struct {
+	gate time.Duration
+	op   string
+}
+
+// opFor is "count for <gate>".
+func (c *Counter) opFor(gate time.Duration) string {
+	if g := c.lastOp.Load(); g != nil && g.gate == gate {
+		return g.op
+	}
+	g := &gateOp{gate: gate, op: fmt.Sprintf("count for %v", gate)}
+	c.lastOp.Store(g)
+	return g.op
 }
 
 func newCounter(b *base) *Counter { return &Counter{base: b, solver: phonon.NewSolver()} }
@@ -48,7 +68,7 @@ func (c *Counter) Channels() []string { return []string{"x", "xx"} }
 
 // Count opens the gate for gate and returns the counts of x and xx.
 func (c *Counter) Count(ctx context.Context, gate time.Duration) ([]uint64, error) {
-	op := fmt.Sprintf("count for %v", gate)
+	op := c.opFor(gate)
 	if err := c.begin(ctx, op); err != nil {
 		return nil, err
 	}
@@ -64,7 +84,7 @@ func (c *Counter) Count(ctx context.Context, gate time.Duration) ([]uint64, erro
 		return nil, err
 	}
 	st := c.st
-	start := st.now()
+	start := st.readStart()
 	sn := st.snap()
 
 	counts, err := c.draw(sn, gate)
@@ -81,7 +101,7 @@ func (c *Counter) Count(ctx context.Context, gate time.Duration) ([]uint64, erro
 // noise, then the model's yields, then Poisson counts, all from the
 // counter's own stream in that order.
 func (c *Counter) draw(sn snapshot, gate time.Duration) ([]uint64, error) {
-	t := c.st.truth
+	t := &c.st.truth
 	c.rngMu.Lock()
 	defer c.rngMu.Unlock()
 	noise := 1.0
@@ -101,7 +121,7 @@ func (c *Counter) draw(sn snapshot, gate time.Duration) ([]uint64, error) {
 
 // pointAt is the dot model's point for an optical state, with the laser
 // power multiplied by noise.
-func (t truth) pointAt(sn snapshot, noise float64) (model.Params, error) {
+func (t *truth) pointAt(sn snapshot, noise float64) (model.Params, error) {
 	gdd, err := t.stretcher.GDDPS2(sn.stageMM)
 	if err != nil {
 		return model.Params{}, fmt.Errorf("true stretcher at %.3f mm: %w", sn.stageMM, err)

@@ -269,9 +269,9 @@ func (p *PowerMeter) PowerUW(ctx context.Context) (float64, error) {
 		return 0, err
 	}
 	st := p.st
-	start := st.now()
+	start := st.readStart()
 	sn := st.snap()
-	t := st.truth
+	t := &st.truth
 	p.rngMu.Lock()
 	zLaser, zMeter, zFloor := p.rng.NormFloat64(), p.rng.NormFloat64(), p.rng.NormFloat64()
 	p.rngMu.Unlock()

@@ -115,7 +115,7 @@ type truth struct {
 
 // bathAt is the phonon bath with the sample at k kelvin (rounded to
 // sampleQuantumK), or the zero Bath when the dot has no phonons.
-func (t truth) bathAt(k float64) phonon.Bath {
+func (t *truth) bathAt(k float64) phonon.Bath {
 	if t.bath.AlphaPS2 == 0 {
 		return phonon.Bath{}
 	}
@@ -340,10 +340,22 @@ func (st *state) wall(s float64) time.Duration {
 	return durationOf(s / st.speed)
 }
 
+// readStart is the wall time a reading starts, for sleepUntil; an Instant
+// bench never sleeps, so it reads no clock (zero time).
+func (st *state) readStart() time.Time {
+	if st.instant {
+		return time.Time{}
+	}
+	return st.now()
+}
+
 // sleepUntil waits until the wall-clock deadline or the context's end.
 func (st *state) sleepUntil(ctx context.Context, deadline time.Time) error {
+	if st.instant {
+		return ctx.Err()
+	}
 	d := deadline.Sub(st.now())
-	if st.instant || d <= 0 {
+	if d <= 0 {
 		return ctx.Err()
 	}
 	t := time.NewTimer(d)
@@ -372,7 +384,10 @@ func (st *state) snap() snapshot {
 	if st.settled {
 		k = st.settledK
 	}
-	now := st.now()
+	var now time.Time
+	if st.stage.mv != nil || st.angle.mv != nil || st.detuning.mv != nil {
+		now = st.now() // still axes need no clock (a clock read is pure)
+	}
 	return snapshot{
 		stageMM:     st.stage.at(now, st.speed),
 		angleDeg:    st.angle.at(now, st.speed),

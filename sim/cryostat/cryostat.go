@@ -214,6 +214,11 @@ func (c *Cryostat) sampleAtLocked(s float64) float64 {
 
 // smoothAtLocked is the first-order approach alone.
 func (c *Cryostat) smoothAtLocked(s float64) float64 {
+	if c.fromK == c.setpointK && s >= c.changedS {
+		// At the setpoint: the approach term is 0 × a factor in (0, 1], so
+		// the exponential (the hot path's cost) is skipped, bit for bit.
+		return c.setpointK
+	}
 	tau := c.o.TimeConstant.Seconds()
 	return c.setpointK + (c.fromK-c.setpointK)*math.Exp(-(s-c.changedS)/tau)
 }
