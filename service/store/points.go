@@ -30,6 +30,12 @@ const readChunk = 512
 //
 // When AppendPoint returns an error (invalid point, ctx ended, ErrClosed),
 // done is never called.
+//
+// The point is encoded by the writer, just before the transaction that
+// holds it (off the caller's goroutine): p must not be modified after
+// AppendPoint returns nil (reading it is fine). A point that cannot be
+// encoded gets its error through done, like ErrSequence: nothing of it is
+// stored and the points queued behind it get ErrSequence.
 func (s *Store) AppendPoint(ctx context.Context, p *glissv1.Point, done func(err error)) error {
 	if p == nil {
 		return fmt.Errorf("store: append point: nil point: %w", ErrInvalid)
@@ -37,11 +43,7 @@ func (s *Store) AppendPoint(ctx context.Context, p *glissv1.Point, done func(err
 	if err := checkScanID(p.GetScanId()); err != nil {
 		return fmt.Errorf("store: append point %d: %w", p.GetSeq(), err)
 	}
-	data, err := marshalOpts.Marshal(p)
-	if err != nil {
-		return fmt.Errorf("store: scan %q: point %d: encode: %w", p.GetScanId(), p.GetSeq(), err)
-	}
-	if err := s.submit(ctx, op{kind: opPoint, scanID: p.GetScanId(), seq: p.GetSeq(), data: data, done: done}); err != nil {
+	if err := s.submit(ctx, op{kind: opPoint, scanID: p.GetScanId(), seq: p.GetSeq(), point: p, done: done}); err != nil {
 		return fmt.Errorf("store: scan %q: append point %d: %w", p.GetScanId(), p.GetSeq(), err)
 	}
 	return nil
