@@ -566,14 +566,19 @@ func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *plan.Tar
 			return nil, err
 		}
 	}
-	p := &glissv1.Point{
+	// The point's parts that live exactly as long as it does, in one
+	// allocation instead of six.
+	parts := new(pointParts)
+	p := &parts.point
+	*p = glissv1.Point{
 		ScanId: r.rec.Id, Seq: seq, Index: idx, Values: values,
 		GateMs:    float64(r.plan.Gate) / float64(time.Millisecond),
-		StartedAt: timestamppb.New(started),
-		Commanded: &glissv1.Commanded{
-			StageMm: last.StageMM, GddPs2: last.GDDPS2, AngleDeg: last.AngleDeg,
-			PowerUw: last.PowerUW, DetuningMev: last.DetuningMeV, TemperatureK: last.TemperatureK,
-		},
+		StartedAt: parts.stamp(0, started),
+		Commanded: &parts.commanded,
+	}
+	parts.commanded = glissv1.Commanded{
+		StageMm: last.StageMM, GddPs2: last.GDDPS2, AngleDeg: last.AngleDeg,
+		PowerUw: last.PowerUW, DetuningMev: last.DetuningMeV, TemperatureK: last.TemperatureK,
 	}
 	if pm := e.bench.PowerMeter(); pm != nil {
 		uw, err := pm.PowerUW(pctx)
@@ -583,14 +588,16 @@ func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *plan.Tar
 		if math.IsNaN(uw) || math.IsInf(uw, 0) {
 			return nil, fmt.Errorf("power meter %q: reading %v is not a number", e.bench.ByRole(drivers.RolePowerMeter).Name, uw)
 		}
-		p.MeasuredPowerUw = &uw
+		parts.powerUW = uw
+		p.MeasuredPowerUw = &parts.powerUW
 	}
 	if th := e.bench.Thermometer(); th != nil {
 		k, err := th.TemperatureK(pctx)
 		if err != nil {
 			return nil, instErr(e.bench, drivers.RoleThermometer, fmt.Errorf("thermometer %q: read: %w", e.bench.ByRole(drivers.RoleThermometer).Name, err))
 		}
-		p.TemperatureK = &k
+		parts.temperatureK = k
+		p.TemperatureK = &parts.temperatureK
 	}
 	c := e.bench.Counter()
 	counts, err := c.Count(pctx, r.plan.Gate)
@@ -601,8 +608,23 @@ func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *plan.Tar
 		return nil, fmt.Errorf("counter %q: %d channels returned, %d expected", e.bench.ByRole(drivers.RoleCounter).Name, len(counts), want)
 	}
 	p.Counts = counts
-	p.FinishedAt = timestamppb.New(e.opts.Now())
+	p.FinishedAt = parts.stamp(1, e.opts.Now())
 	return p, nil
+}
+
+// pointParts is a point with the messages and values it points to.
+type pointParts struct {
+	point                 glissv1.Point
+	commanded             glissv1.Commanded
+	stamps                [2]timestamppb.Timestamp
+	powerUW, temperatureK float64
+}
+
+// stamp sets stamps[i] to t (as timestamppb.New does) and returns it.
+func (pp *pointParts) stamp(i int, t time.Time) *timestamppb.Timestamp {
+	ts := &pp.stamps[i]
+	ts.Seconds, ts.Nanos = t.Unix(), int32(t.Nanosecond())
+	return ts
 }
 
 // interlockAfter checks a measured point against the count-rate ceilings
