@@ -122,12 +122,8 @@ func (c *Counter) draw(sn snapshot, gate time.Duration) ([]uint64, error) {
 // pointAt is the dot model's point for an optical state, with the laser
 // power multiplied by noise.
 func (t *truth) pointAt(sn snapshot, noise float64) (model.Params, error) {
-	gdd, err := t.stretcher.GDDPS2(sn.stageMM)
-	if err != nil {
-		return model.Params{}, fmt.Errorf("true stretcher at %.3f mm: %w", sn.stageMM, err)
-	}
 	p := t.dot
-	p.GDDPS2 = gdd
+	p.GDDPS2 = t.line.GDDPS2(sn.stageMM) // the stretcher was checked in resolve
 	p.AreaPi = t.areaPi(t.powerUW(sn.angleDeg) * noise)
 	p.DetuningMeV = sn.detuningMeV
 	return p, nil

@@ -106,6 +106,7 @@ type truth struct {
 	dot           model.Params
 	chain         detection.Chain
 	stretcher     calib.Stretcher
+	line          calib.StretcherLine // stretcher's law, slope computed once
 	malus         calib.Malus
 	p1UW          float64
 	powerNoiseRel float64
@@ -164,9 +165,11 @@ func (o Options) resolve() (truth, float64, error) {
 	if t.stretcher == (calib.Stretcher{}) {
 		t.stretcher = DemoStretcher()
 	}
-	if _, err := t.stretcher.SlopePS2PerMM(); err != nil {
+	line, err := t.stretcher.Line()
+	if err != nil {
 		return truth{}, 0, fmt.Errorf("Options.Stretcher: %w", err)
 	}
+	t.line = line
 	if t.malus == (calib.Malus{}) {
 		t.malus = DemoAttenuator()
 	}
@@ -186,7 +189,6 @@ func (o Options) resolve() (truth, float64, error) {
 			return truth{}, 0, fmt.Errorf("Options.Stretcher: GDD %g ps² at %g mm of travel, beyond the model's ±%g ps²", g, mm, model.MaxAbsGDDPS2)
 		}
 	}
-	var err error
 	if t.powerNoiseRel, err = resolveNoise("PowerNoiseRel", o.PowerNoiseRel, defaultPowerNoise); err != nil {
 		return truth{}, 0, err
 	}
