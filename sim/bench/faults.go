@@ -122,6 +122,7 @@ func InjectFault(b *drivers.Bench, instrument string, f Fault) error {
 	st := bs.st
 	st.mu.Lock()
 	st.faults[bs.name] = &f
+	st.nFaults.Store(int32(len(st.faults)))
 	st.mu.Unlock()
 	st.log.Warn("fault armed", "instrument", bs.name, "kind", f.Kind.String(), "calls", f.Calls)
 	return nil
@@ -135,6 +136,7 @@ func ClearFault(b *drivers.Bench, instrument string) error {
 	}
 	bs.st.mu.Lock()
 	delete(bs.st.faults, bs.name)
+	bs.st.nFaults.Store(int32(len(bs.st.faults)))
 	bs.st.mu.Unlock()
 	return nil
 }
@@ -143,6 +145,9 @@ func ClearFault(b *drivers.Bench, instrument string) error {
 // to this call (a stuck fault applies only to moves).
 func (b *base) takeFault(isMove bool) (Fault, bool) {
 	st := b.st
+	if st.nFaults.Load() == 0 {
+		return Fault{}, false // nothing armed: the common case, without the lock
+	}
 	st.mu.Lock()
 	defer st.mu.Unlock()
 	f, ok := st.faults[b.name]
@@ -153,6 +158,7 @@ func (b *base) takeFault(isMove bool) (Fault, bool) {
 		f.Calls--
 		if f.Calls == 0 {
 			delete(st.faults, b.name)
+			st.nFaults.Store(int32(len(st.faults)))
 		}
 	}
 	return *f, true

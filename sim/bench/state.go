@@ -8,6 +8,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/gliss-lab/gliss/drivers/calib"
@@ -260,6 +261,9 @@ type state struct {
 	owners   map[string]string // role "stage"/"attenuator"/"laser" → instrument name
 	names    map[string]bool   // instrument names in use
 	faults   map[string]*Fault // instrument name → armed fault
+	// nFaults is len(faults), stored under mu after every change of it and
+	// read without mu: a call with no fault armed anywhere skips the lock.
+	nFaults atomic.Int32
 	// settled: the last stability wait succeeded at settledK and the
 	// setpoint has not changed since; the counter's phonons are then at
 	// settledK (see Thermometer.WaitStableK).
@@ -322,6 +326,7 @@ func (st *state) release(name, role string) {
 		delete(st.owners, role)
 	}
 	delete(st.faults, name)
+	st.nFaults.Store(int32(len(st.faults)))
 }
 
 // rngFor derives an instrument's own random stream from the bench seed and
