@@ -36,12 +36,14 @@ func TestWaitStableWithoutStabilizer(t *testing.T) {
 		t.Errorf("settled at %.3f K, want 8 ± 0.1 K", k)
 	}
 
-	osc, err := cryostat.New(cryostat.Options{Seed: 4, Speed: 1000, OscillationK: 0.3, OscillationPeriod: 20 * time.Second})
+	// ±0.3 K limit cycle of 200 s (0.2 s here): within ±0.05 K about 11 % of
+	// the time, a few ms per crossing, never for the 1 s hold (ten polls in a row).
+	osc, err := cryostat.New(cryostat.Options{Seed: 4, Speed: 1000, OscillationK: 0.3, OscillationPeriod: 200 * time.Second})
 	if err != nil {
 		t.Fatal(err)
 	}
 	defer osc.Close()
-	err = waitStable(ctx, plainThermometer{osc}, 4.2, 0.05, 30*time.Millisecond, 300*time.Millisecond)
+	err = waitStable(ctx, plainThermometer{osc}, 4.2, 0.05, time.Second, 1500*time.Millisecond)
 	if err == nil || !strings.Contains(err.Error(), "not stable") {
 		t.Errorf("an oscillating controller: %v, want a 'not stable' error", err)
 	}
