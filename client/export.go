@@ -14,11 +14,11 @@ import (
 
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
 	"github.com/gliss-lab/gliss/client/npy"
-	"github.com/gliss-lab/gliss/service/plan"
+	"github.com/gliss-lab/gliss/service/sweep"
 )
 
 // AxisColumn is the CSV column of an axis kind ("gdd_ps2", "power_uw", …).
-func AxisColumn(k glissv1.AxisKind) string { return plan.Column(k) }
+func AxisColumn(k glissv1.AxisKind) string { return sweep.Column(k) }
 
 // commanded columns, in CSV order, with their getters.
 var commandedColumns = []struct {

@@ -27,7 +27,7 @@ import (
 // Calibration: the CalibrationService owns the bench's calibration set in
 // use. At start it applies the newest stored version to the bench
 // (drivers.Bench.SetCalibration, a mutex-guarded swap); the engine plans
-// every submission with Bench.CurrentCalibration (through plan.New) and
+// every submission with Bench.CurrentCalibration (through sweep.New) and
 // records the service's current record in the scan (SetCalibrationSource).
 // A put stores the version first, then swaps it in, so a scan never records
 // a version the store lacks.

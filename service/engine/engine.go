@@ -20,8 +20,8 @@ import (
 
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
 	"github.com/gliss-lab/gliss/drivers"
-	"github.com/gliss-lab/gliss/service/plan"
 	"github.com/gliss-lab/gliss/service/store"
+	"github.com/gliss-lab/gliss/service/sweep"
 )
 
 // Store is what the engine needs of the scan store.
@@ -108,7 +108,7 @@ func (e *Engine) Bench() *drivers.Bench { return e.bench }
 type run struct {
 	mu      sync.Mutex
 	rec     *glissv1.Scan
-	plan    *plan.Plan
+	sweep   *sweep.Sweep
 	version uint64 // incremented on each record change
 	// changes counts record changes and log lines, for watchers to skip
 	// looking at an unchanged record (readable without mu).
@@ -139,8 +139,8 @@ type run struct {
 	logs []*glissv1.LogLine
 }
 
-func newRun(rec *glissv1.Scan, p *plan.Plan, durable uint64) *run {
-	r := &run{rec: rec, plan: p, resume: make(chan struct{}), durable: durable}
+func newRun(rec *glissv1.Scan, p *sweep.Sweep, durable uint64) *run {
+	r := &run{rec: rec, sweep: p, resume: make(chan struct{}), durable: durable}
 	r.state.Store(int32(rec.State))
 	return r
 }
@@ -180,8 +180,8 @@ func newID(now time.Time) string {
 }
 
 // Validate checks a spec against the bench and returns its plan and preview.
-func (e *Engine) Validate(spec *glissv1.ScanSpec) (*plan.Plan, *glissv1.Preview, error) {
-	p, err := plan.New(spec, e.bench)
+func (e *Engine) Validate(spec *glissv1.ScanSpec) (*sweep.Sweep, *glissv1.Preview, error) {
+	p, err := sweep.New(spec, e.bench)
 	if err != nil {
 		return nil, nil, err
 	}
@@ -194,10 +194,10 @@ func (e *Engine) Validate(spec *glissv1.ScanSpec) (*plan.Plan, *glissv1.Preview,
 }
 
 // currentTarget reads where the instruments are now, for previews.
-func (e *Engine) currentTarget() plan.Target {
+func (e *Engine) currentTarget() sweep.Target {
 	ctx, cancel := context.WithTimeout(context.Background(), 500*time.Millisecond)
 	defer cancel()
-	var t plan.Target
+	var t sweep.Target
 	if s := e.bench.Stage(); s != nil {
 		if mm, err := s.PositionMM(ctx); err == nil {
 			t.StageMM = &mm
@@ -224,7 +224,7 @@ type SubmitOptions struct {
 	Calibration *glissv1.CalibrationRecord
 }
 
-// Submit validates, stores and queues a scan. The error is *plan.Invalid
+// Submit validates, stores and queues a scan. The error is *sweep.Invalid
 // for a bad spec (nothing is stored then).
 func (e *Engine) Submit(ctx context.Context, spec *glissv1.ScanSpec) (*glissv1.Scan, error) {
 	return e.SubmitWith(ctx, spec, SubmitOptions{})
@@ -444,7 +444,7 @@ func (e *Engine) requeueStored(ctx context.Context, id, reason string) (*glissv1
 		// A replay runs on a simulated bench of its own, never on this one.
 		return nil, fmt.Errorf("scan %s is a replay of %s and cannot be resumed on the bench %q: replay %s again (gliss scan replay %s): %w", id, rec.ReplayOf, e.bench.Name, rec.ReplayOf, rec.ReplayOf, ErrState)
 	}
-	p, err := plan.New(rec.Spec, e.bench)
+	p, err := sweep.New(rec.Spec, e.bench)
 	if err != nil {
 		return nil, fmt.Errorf("scan %s no longer fits the bench %q: %v: %w", id, e.bench.Name, err, ErrState)
 	}
@@ -620,14 +620,14 @@ func (e *Engine) Recover(ctx context.Context, autoResume bool) error {
 			}
 			continue
 		}
-		p, err := plan.New(rec.Spec, e.bench)
+		p, err := sweep.New(rec.Spec, e.bench)
 		if err != nil {
 			r.mu.Lock()
 			_ = e.transitionLocked(ctx, r, glissv1.ScanState_SCAN_STATE_FAILED, fmt.Sprintf("no longer fits the bench: %v", err))
 			r.mu.Unlock()
 			continue
 		}
-		r.plan = p
+		r.sweep = p
 		e.mu.Lock()
 		e.runs[rec.Id] = r
 		e.queue = append(e.queue, r)

@@ -13,7 +13,7 @@ import (
 
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
 	"github.com/gliss-lab/gliss/drivers"
-	"github.com/gliss-lab/gliss/service/plan"
+	"github.com/gliss-lab/gliss/service/sweep"
 )
 
 // Run executes queued scans one at a time until ctx is cancelled. On
@@ -90,7 +90,7 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 	r.mu.Lock()
 	reason := "started"
 	if start > 0 {
-		reason = fmt.Sprintf("continuing from point %d of %d", start, r.plan.Points)
+		reason = fmt.Sprintf("continuing from point %d of %d", start, r.sweep.Points)
 	}
 	err = e.transitionLocked(ctx, r, glissv1.ScanState_SCAN_STATE_RUNNING, reason)
 	r.mu.Unlock()
@@ -98,13 +98,13 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 		e.log.Error("record state", "scan", id, "err", err)
 	}
 
-	last := plan.Target{} // what this run has commanded so far
+	last := sweep.Target{} // what this run has commanded so far
 	if err := e.setFixed(ctx, r, &last); err != nil {
 		if !e.holdOnError(ctx, r, fmt.Sprintf("fixed settings: %v", err), err, &last) {
 			return
 		}
 	}
-	for seq := start; seq < r.plan.Points; {
+	for seq := start; seq < r.sweep.Points; {
 		// Control requests take effect between points.
 		stop, held := e.between(ctx, r, &last)
 		if stop {
@@ -145,15 +145,15 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 		e.endWith(ctx, r, glissv1.ScanState_SCAN_STATE_PAUSED, fmt.Sprintf("store: %v", err))
 		return
 	}
-	if n := e.durableOrStored(r); n != r.plan.Points {
+	if n := e.durableOrStored(r); n != r.sweep.Points {
 		// A write failed after the last point was queued.
-		if !e.holdOnError(ctx, r, fmt.Sprintf("store has %d of %d points", n, r.plan.Points), nil, &last) {
+		if !e.holdOnError(ctx, r, fmt.Sprintf("store has %d of %d points", n, r.sweep.Points), nil, &last) {
 			return
 		}
 		e.runScanTail(ctx, r)
 		return
 	}
-	e.endWith(ctx, r, glissv1.ScanState_SCAN_STATE_SUCCEEDED, fmt.Sprintf("all %d points stored", r.plan.Points))
+	e.endWith(ctx, r, glissv1.ScanState_SCAN_STATE_SUCCEEDED, fmt.Sprintf("all %d points stored", r.sweep.Points))
 }
 
 // runScanTail re-enters runScan's loop after a late write error was resolved
@@ -217,7 +217,7 @@ func (e *Engine) pointDurable(r *run, p *glissv1.Point, err error) {
 // between handles pause and cancel requests and daemon shutdown; stop is
 // true when the runner must stop working on this scan, held when it was
 // paused and resumed.
-func (e *Engine) between(ctx context.Context, r *run, last *plan.Target) (stop, held bool) {
+func (e *Engine) between(ctx context.Context, r *run, last *sweep.Target) (stop, held bool) {
 	for {
 		if err := r.takeWriteErr(); err != nil {
 			if !e.hold(ctx, r, err.Error(), nil, last) {
@@ -257,9 +257,9 @@ func (e *Engine) between(ctx context.Context, r *run, last *plan.Target) (stop, 
 // that stays unavailable (drivers.ErrUnavailable past its driver's retry
 // budget), the instrument is probed with backoff while the scan is paused
 // and the scan resumes by itself when it answers again.
-func (e *Engine) holdOnError(ctx context.Context, r *run, reason string, cause error, last *plan.Target) bool {
+func (e *Engine) holdOnError(ctx context.Context, r *run, reason string, cause error, last *sweep.Target) bool {
 	e.log.Warn("scan paused on error", "scan", r.rec.Id, "reason", reason)
-	*last = plan.Target{} // instruments may be anywhere now: command everything again
+	*last = sweep.Target{} // instruments may be anywhere now: command everything again
 	var probe *drivers.Entry
 	var ie *instrumentError
 	if errors.As(cause, &ie) && errors.Is(cause, drivers.ErrUnavailable) {
@@ -284,7 +284,7 @@ const (
 // true on resume. With probe set (an unavailable instrument) it also probes
 // that instrument with backoff and resumes by itself once it answers,
 // unless an operator paused the scan meanwhile.
-func (e *Engine) hold(ctx context.Context, r *run, reason string, probe *drivers.Entry, last *plan.Target) bool {
+func (e *Engine) hold(ctx context.Context, r *run, reason string, probe *drivers.Entry, last *sweep.Target) bool {
 	r.mu.Lock()
 	if err := e.transitionLocked(ctx, r, glissv1.ScanState_SCAN_STATE_PAUSED, reason); err != nil {
 		e.log.Error("record pause", "scan", r.rec.Id, "err", err)
@@ -322,7 +322,7 @@ func (e *Engine) hold(ctx context.Context, r *run, reason string, probe *drivers
 				if err != nil {
 					e.log.Error("record resume", "scan", r.rec.Id, "err", err)
 				}
-				*last = plan.Target{}
+				*last = sweep.Target{}
 				return true
 			default:
 				e.log.Debug("instrument still unavailable", "scan", r.rec.Id, "instrument", probe.Name, "probe", tries, "err", perr)
@@ -347,7 +347,7 @@ func (e *Engine) hold(ctx context.Context, r *run, reason string, probe *drivers
 			if err != nil {
 				e.log.Error("record resume", "scan", r.rec.Id, "err", err)
 			}
-			*last = plan.Target{}
+			*last = sweep.Target{}
 			return true
 		}
 		resume = r.resume
@@ -416,22 +416,22 @@ func (e *Engine) endWith(ctx context.Context, r *run, to glissv1.ScanState, reas
 }
 
 // setFixed applies the spec's fixed settings.
-func (e *Engine) setFixed(ctx context.Context, r *run, last *plan.Target) error {
-	t := r.plan.Fixed
-	if t == (plan.Target{}) {
+func (e *Engine) setFixed(ctx context.Context, r *run, last *sweep.Target) error {
+	t := r.sweep.Fixed
+	if t == (sweep.Target{}) {
 		return nil
 	}
-	if err := r.plan.Check(t); err != nil {
+	if err := r.sweep.Check(t); err != nil {
 		return err
 	}
-	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout+e.tempBudget(r.plan, t))
+	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout+e.tempBudget(r.sweep, t))
 	defer cancel()
-	return e.command(pctx, r.plan, t, last)
+	return e.command(pctx, r.sweep, t, last)
 }
 
 // tempBudget is the extra time a point may take when it changes the
 // temperature setpoint: the stability wait's timeout and hold.
-func (e *Engine) tempBudget(p *plan.Plan, t plan.Target) time.Duration {
+func (e *Engine) tempBudget(p *sweep.Sweep, t sweep.Target) time.Duration {
 	if t.TemperatureK == nil {
 		return 0
 	}
@@ -474,7 +474,7 @@ func waitStable(ctx context.Context, th drivers.Thermometer, setpointK, tolK flo
 
 // command sets every instrument whose target changed, in parallel, and
 // returns when all have arrived.
-func (e *Engine) command(ctx context.Context, pl *plan.Plan, t plan.Target, last *plan.Target) error {
+func (e *Engine) command(ctx context.Context, pl *sweep.Sweep, t sweep.Target, last *sweep.Target) error {
 	changed := func(a, b *float64) bool { return a != nil && !same(a, b) }
 	if !changed(t.StageMM, last.StageMM) && !changed(t.AngleDeg, last.AngleDeg) &&
 		!changed(t.DetuningMeV, last.DetuningMeV) && !changed(t.TemperatureK, last.TemperatureK) {
@@ -540,7 +540,7 @@ func (e *Engine) command(ctx context.Context, pl *plan.Plan, t plan.Target, last
 	if err == nil {
 		last.Merge(t)
 	} else {
-		*last = plan.Target{}
+		*last = sweep.Target{}
 	}
 	return err
 }
@@ -548,21 +548,21 @@ func (e *Engine) command(ctx context.Context, pl *plan.Plan, t plan.Target, last
 func same(a, b *float64) bool { return a != nil && b != nil && *a == *b }
 
 // acquire measures point seq: set, settle, read the power meter, gate.
-func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *plan.Target) (*glissv1.Point, error) {
-	idx, values, t := r.plan.At(seq)
+func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *sweep.Target) (*glissv1.Point, error) {
+	idx, values, t := r.sweep.At(seq)
 	// Interlock: checked again before every command.
-	if err := r.plan.Check(t); err != nil {
+	if err := r.sweep.Check(t); err != nil {
 		return nil, err
 	}
 	// The point is finished even when the daemon is asked to stop.
-	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout+r.plan.Gate+r.plan.Settle+e.tempBudget(r.plan, t))
+	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout+r.sweep.Gate+r.sweep.Settle+e.tempBudget(r.sweep, t))
 	defer cancel()
 	started := e.opts.Now()
-	if err := e.command(pctx, r.plan, t, last); err != nil {
+	if err := e.command(pctx, r.sweep, t, last); err != nil {
 		return nil, err
 	}
-	if r.plan.Settle > 0 {
-		if err := sleep(pctx, e.bench.Scale(r.plan.Settle)); err != nil {
+	if r.sweep.Settle > 0 {
+		if err := sleep(pctx, e.bench.Scale(r.sweep.Settle)); err != nil {
 			return nil, err
 		}
 	}
@@ -572,7 +572,7 @@ func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *plan.Tar
 	p := &parts.point
 	*p = glissv1.Point{
 		ScanId: r.rec.Id, Seq: seq, Index: idx, Values: values,
-		GateMs:    float64(r.plan.Gate) / float64(time.Millisecond),
+		GateMs:    float64(r.sweep.Gate) / float64(time.Millisecond),
 		StartedAt: parts.stamp(0, started),
 		Commanded: &parts.commanded,
 	}
@@ -600,9 +600,9 @@ func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *plan.Tar
 		p.TemperatureK = &parts.temperatureK
 	}
 	c := e.bench.Counter()
-	counts, err := c.Count(pctx, r.plan.Gate)
+	counts, err := c.Count(pctx, r.sweep.Gate)
 	if err != nil {
-		return nil, instErr(e.bench, drivers.RoleCounter, fmt.Errorf("counter %q: gate %v: %w", e.bench.ByRole(drivers.RoleCounter).Name, r.plan.Gate, err))
+		return nil, instErr(e.bench, drivers.RoleCounter, fmt.Errorf("counter %q: gate %v: %w", e.bench.ByRole(drivers.RoleCounter).Name, r.sweep.Gate, err))
 	}
 	if want := len(c.Channels()); len(counts) != want {
 		return nil, fmt.Errorf("counter %q: %d channels returned, %d expected", e.bench.ByRole(drivers.RoleCounter).Name, len(counts), want)

@@ -12,7 +12,7 @@ import (
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
 	"github.com/gliss-lab/gliss/drivers/calib"
 	"github.com/gliss-lab/gliss/service/analysis"
-	"github.com/gliss-lab/gliss/service/plan"
+	"github.com/gliss-lab/gliss/service/sweep"
 	"github.com/gliss-lab/gliss/sim/model"
 )
 
@@ -94,7 +94,7 @@ func chirpPowerPoints(sc *glissv1.Scan, pts []*glissv1.Point) ([]*glissv1.Point,
 		idx := p.GetIndex()
 		for i, v := range idx {
 			if i != gAxis && i != pAxis && v != 0 {
-				return nil, status.Errorf(codes.FailedPrecondition, "scan %s sweeps axis %d (%s) besides chirp and power: analyse a power × chirp map", sc.GetId(), i, plan.Column(sc.GetSpec().GetAxes()[i].GetKind()))
+				return nil, status.Errorf(codes.FailedPrecondition, "scan %s sweeps axis %d (%s) besides chirp and power: analyse a power × chirp map", sc.GetId(), i, sweep.Column(sc.GetSpec().GetAxes()[i].GetKind()))
 			}
 		}
 		cm := p.GetCommanded()
@@ -229,10 +229,10 @@ func (a *Analysis) CompareScans(ctx context.Context, req *glissv1.CompareScansRe
 	}
 	var kindsA, kindsB []string
 	for _, ax := range sa.GetSpec().GetAxes() {
-		kindsA = append(kindsA, plan.Column(ax.GetKind()))
+		kindsA = append(kindsA, sweep.Column(ax.GetKind()))
 	}
 	for _, ax := range sb.GetSpec().GetAxes() {
-		kindsB = append(kindsB, plan.Column(ax.GetKind()))
+		kindsB = append(kindsB, sweep.Column(ax.GetKind()))
 	}
 	if fmt.Sprint(kindsA) != fmt.Sprint(kindsB) {
 		return nil, status.Errorf(codes.FailedPrecondition, "scan %s has axes %v, scan %s %v: not comparable point by point", sa.GetId(), kindsA, sb.GetId(), kindsB)

@@ -21,7 +21,7 @@ import (
 	"github.com/gliss-lab/gliss/drivers/calib"
 	"github.com/gliss-lab/gliss/service/analysis"
 	"github.com/gliss-lab/gliss/service/engine"
-	"github.com/gliss-lab/gliss/service/plan"
+	"github.com/gliss-lab/gliss/service/sweep"
 	"github.com/gliss-lab/gliss/sim/model"
 	"github.com/gliss-lab/gliss/sim/phonon"
 )
@@ -482,9 +482,9 @@ func channelIndex(sc *glissv1.Scan, name, field string) (int, error) {
 type fieldErr struct{ field, msg string }
 
 func invalidMany(fe []fieldErr) error {
-	fields := make([]plan.FieldError, len(fe))
+	fields := make([]sweep.FieldError, len(fe))
 	for i, f := range fe {
-		fields[i] = plan.FieldError{Field: f.field, Msg: f.msg}
+		fields[i] = sweep.FieldError{Field: f.field, Msg: f.msg}
 	}
 	return invalid(fields...)
 }

@@ -16,15 +16,15 @@ import (
 
 	"github.com/gliss-lab/gliss/drivers"
 	"github.com/gliss-lab/gliss/service/engine"
-	"github.com/gliss-lab/gliss/service/plan"
 	"github.com/gliss-lab/gliss/service/store"
+	"github.com/gliss-lab/gliss/service/sweep"
 )
 
 // invalid builds an InvalidArgument status with one BadRequest violation per field.
-func invalid(fields ...plan.FieldError) error {
+func invalid(fields ...sweep.FieldError) error {
 	msg := "invalid request"
 	if len(fields) > 0 {
-		msg = (&plan.Invalid{Fields: fields}).Error()
+		msg = (&sweep.Invalid{Fields: fields}).Error()
 	}
 	st := status.New(codes.InvalidArgument, msg)
 	br := &errdetails.BadRequest{}
@@ -38,7 +38,7 @@ func invalid(fields ...plan.FieldError) error {
 }
 
 func invalidField(field, format string, a ...any) error {
-	return invalid(plan.FieldError{Field: field, Msg: fmt.Sprintf(format, a...)})
+	return invalid(sweep.FieldError{Field: field, Msg: fmt.Sprintf(format, a...)})
 }
 
 // toStatus maps engine, store and driver errors to gRPC status errors.
@@ -49,7 +49,7 @@ func toStatus(err error) error {
 	if _, ok := status.FromError(err); ok {
 		return err
 	}
-	var inv *plan.Invalid
+	var inv *sweep.Invalid
 	var busy *engine.BusyError
 	switch {
 	case errors.As(err, &inv):

@@ -1,4 +1,4 @@
-package plan
+package sweep
 
 import (
 	"errors"
@@ -54,7 +54,7 @@ func TestPulseAreaAxis(t *testing.T) {
 }
 
 // TestNDWheelLaw: a power axis through an ND-wheel calibration set with
-// SetCalibration; the plan made before the swap keeps its law.
+// SetCalibration; the sweep made before the swap keeps its law.
 func TestNDWheelLaw(t *testing.T) {
 	b := simBench(t)
 	spec := &glissv1.ScanSpec{GateMs: 1, Axes: []*glissv1.Axis{{Kind: glissv1.AxisKind_AXIS_KIND_POWER_UW, Values: &glissv1.Axis_List{List: &glissv1.ValueList{Values: []float64{10}}}}}}

@@ -1,9 +1,9 @@
-// Package plan turns a scan spec into a plan: it validates the spec against
+// Package sweep turns a scan spec into a sweep: it validates the spec against
 // the bench (limits, calibrations), expands every axis into its values,
 // orders the points (slowest axis first, optional snake order of the fastest
 // axis) and estimates what the scan will cost. It does no I/O: the same code
 // validates a submission and, after a restart, recomputes where to resume.
-package plan
+package sweep
 
 import (
 	"fmt"
@@ -70,8 +70,8 @@ type Axis struct {
 	Values []float64 // in the axis unit
 }
 
-// Plan is a validated, expanded scan.
-type Plan struct {
+// Sweep is a validated, expanded scan.
+type Sweep struct {
 	Axes   []Axis
 	Snake  bool
 	Gate   time.Duration
@@ -186,17 +186,17 @@ func instrumentOf(k glissv1.AxisKind) string {
 }
 
 // New validates spec against the bench and expands it. The error is *Invalid
-// when the spec is at fault; it lists every bad field. The plan takes the
+// when the spec is at fault; it lists every bad field. The sweep takes the
 // bench's calibration in use once (drivers.Bench.CurrentCalibration, safe
 // against a concurrent SetCalibration) and keeps it: a calibration put
-// later changes new plans only.
-func New(spec *glissv1.ScanSpec, b *drivers.Bench) (*Plan, error) {
+// later changes new sweeps only.
+func New(spec *glissv1.ScanSpec, b *drivers.Bench) (*Sweep, error) {
 	inv := &Invalid{}
 	if spec == nil {
 		inv.add("spec", "missing")
 		return nil, inv
 	}
-	p := &Plan{Snake: spec.GetSnake(), cal: b.CurrentCalibration(), limits: limitsOf(b)}
+	p := &Sweep{Snake: spec.GetSnake(), cal: b.CurrentCalibration(), limits: limitsOf(b)}
 	if len(spec.GetName()) > MaxNameLen {
 		inv.add("spec.name", "%d characters, at most %d allowed", len(spec.GetName()), MaxNameLen)
 	}
@@ -310,7 +310,7 @@ func New(spec *glissv1.ScanSpec, b *drivers.Bench) (*Plan, error) {
 	return p, nil
 }
 
-func (p *Plan) expandAxis(field string, a *glissv1.Axis, inv *Invalid) (Axis, bool) {
+func (p *Sweep) expandAxis(field string, a *glissv1.Axis, inv *Invalid) (Axis, bool) {
 	ax := Axis{Kind: a.GetKind()}
 	if instrumentOf(ax.Kind) == "" {
 		inv.add(field+".kind", "unknown axis kind %v (one of GDD_PS2, STAGE_MM, POWER_UW, ANGLE_DEG, DETUNING_MEV, TEMPERATURE_K, PULSE_AREA_PI)", a.GetKind())
@@ -411,7 +411,7 @@ func spaced(a, b float64, n int, amplitude bool) []float64 {
 
 // checkValue converts a value to its raw setting and checks every limit
 // on the way; it returns "" or a message naming the allowed range.
-func (p *Plan) checkValue(k glissv1.AxisKind, v float64) string {
+func (p *Sweep) checkValue(k glissv1.AxisKind, v float64) string {
 	if math.IsNaN(v) || math.IsInf(v, 0) {
 		return fmt.Sprintf("%v is not a finite number", v)
 	}
@@ -493,7 +493,7 @@ func (p *Plan) checkValue(k glissv1.AxisKind, v float64) string {
 
 // powerRangeUW is the power range allowed by the attenuator calibration and
 // the bench's maximum power.
-func (p *Plan) powerRangeUW() (float64, float64) {
+func (p *Sweep) powerRangeUW() (float64, float64) {
 	lo, hi := p.cal.PowerRangeUW()
 	if m := p.limits.att.PowerMaxUW; m > 0 && m < hi {
 		hi = m
@@ -503,7 +503,7 @@ func (p *Plan) powerRangeUW() (float64, float64) {
 
 // checkPower checks a power against the attenuator's range, the bench's
 // maximum power and the angle limits.
-func (p *Plan) checkPower(v float64) string {
+func (p *Sweep) checkPower(v float64) string {
 	lo, hi := p.powerRangeUW()
 	if v < lo || v > hi {
 		return fmt.Sprintf("power %g µW outside the allowed %g–%g µW (attenuator range and the bench's maximum power)", v, lo, hi)
@@ -519,12 +519,12 @@ func (p *Plan) checkPower(v float64) string {
 }
 
 // areaRange is the pulse-area range of the allowed powers.
-func (p *Plan) areaRange() (float64, float64) {
+func (p *Sweep) areaRange() (float64, float64) {
 	lo, hi := p.powerRangeUW()
 	return p.cal.PulseArea.AreaPi(lo), p.cal.PulseArea.AreaPi(hi)
 }
 
-func (p *Plan) checkAngle(deg float64) string {
+func (p *Sweep) checkAngle(deg float64) string {
 	l := p.limits.att
 	if deg < l.AngleMinDeg || deg > l.AngleMaxDeg {
 		return fmt.Sprintf("angle %.4g° outside the attenuator's range %g–%g°", deg, l.AngleMinDeg, l.AngleMaxDeg)
@@ -533,7 +533,7 @@ func (p *Plan) checkAngle(deg float64) string {
 }
 
 // gddRange is the GDD reachable over the stage travel.
-func (p *Plan) gddRange() (float64, float64) {
+func (p *Sweep) gddRange() (float64, float64) {
 	a, errA := p.cal.Stretcher.GDDPS2(p.limits.stage.StageMinMM)
 	b, errB := p.cal.Stretcher.GDDPS2(p.limits.stage.StageMaxMM)
 	if errA != nil || errB != nil {
@@ -544,7 +544,7 @@ func (p *Plan) gddRange() (float64, float64) {
 
 // target converts one value of an axis kind to instrument settings. The
 // value has been checked by checkValue.
-func (p *Plan) target(k glissv1.AxisKind, v float64) Target {
+func (p *Sweep) target(k glissv1.AxisKind, v float64) Target {
 	var t Target
 	switch k {
 	case glissv1.AxisKind_AXIS_KIND_GDD_PS2:
@@ -578,7 +578,7 @@ func ptr(v float64) *float64 { return &v }
 
 // resolve is target's arithmetic without the allocations: the settings of
 // value v in the order of fields (below), and whether the second is set.
-func (p *Plan) resolve(k glissv1.AxisKind, v float64) (set [2]float64, has2 bool) {
+func (p *Sweep) resolve(k glissv1.AxisKind, v float64) (set [2]float64, has2 bool) {
 	t := p.target(k, v)
 	first, second := fields(k, &t)
 	if first != nil {
@@ -632,7 +632,7 @@ func (t *Target) Merge(o Target) {
 // Index returns the axis indices of point seq (slowest axis first), in
 // acquisition order: row-major, with the fastest axis reversed on every
 // other row in snake order.
-func (p *Plan) Index(seq uint64, idx []uint32) []uint32 {
+func (p *Sweep) Index(seq uint64, idx []uint32) []uint32 {
 	idx = idx[:0]
 	n := len(p.Axes)
 	for range n {
@@ -659,7 +659,7 @@ func (p *Plan) Index(seq uint64, idx []uint32) []uint32 {
 // Two allocations: idx, and one array that holds values (its first
 // len(idx) elements, capacity limited so that an append cannot reach the
 // rest) and the settings the Target points to.
-func (p *Plan) At(seq uint64) (idx []uint32, values []float64, t Target) {
+func (p *Sweep) At(seq uint64) (idx []uint32, values []float64, t Target) {
 	n := len(p.Axes)
 	idx = p.Index(seq, make([]uint32, 0, n))
 	buf := make([]float64, 3*n)
@@ -667,7 +667,7 @@ func (p *Plan) At(seq uint64) (idx []uint32, values []float64, t Target) {
 	for i, j := range idx {
 		values[i] = p.Axes[i].Values[j]
 		if i >= len(p.resolved) {
-			t.Merge(p.target(p.Axes[i].Kind, values[i])) // a Plan not made by New
+			t.Merge(p.target(p.Axes[i].Kind, values[i])) // a Sweep not made by New
 			continue
 		}
 		ra := p.resolved[i]
@@ -697,7 +697,7 @@ func (p *Plan) At(seq uint64) (idx []uint32, values []float64, t Target) {
 // Check re-checks a target against the limits just before it is commanded:
 // the interlock that keeps anything outside the limits from a driver even if
 // a calibration changed after the scan was planned.
-func (p *Plan) Check(t Target) error {
+func (p *Sweep) Check(t Target) error {
 	l := p.limits
 	if t.StageMM != nil && (*t.StageMM < l.stage.StageMinMM || *t.StageMM > l.stage.StageMaxMM || math.IsNaN(*t.StageMM)) {
 		return fmt.Errorf("interlock: stage target %.3f mm outside %g–%g mm: %w", *t.StageMM, l.stage.StageMinMM, l.stage.StageMaxMM, drivers.ErrLimit)
@@ -737,9 +737,9 @@ func MoveTime(dist, v, a float64) time.Duration {
 	return time.Duration(s * float64(time.Second))
 }
 
-// Preview estimates the cost of the plan, starting from the instruments'
+// Preview estimates the cost of the sweep, starting from the instruments'
 // current settings (start; nil fields: unknown, counted from the first point).
-func (p *Plan) Preview(start Target) *glissv1.Preview {
+func (p *Sweep) Preview(start Target) *glissv1.Preview {
 	pv := &glissv1.Preview{Points: p.Points}
 	for _, a := range p.Axes {
 		pv.AxisCounts = append(pv.AxisCounts, uint32(len(a.Values)))

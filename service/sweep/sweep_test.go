@@ -1,4 +1,4 @@
-package plan
+package sweep
 
 import (
 	"math"
@@ -179,7 +179,7 @@ func TestBadSpecs(t *testing.T) {
 }
 
 // TestCheckKeepsLimits: the per-command interlock refuses targets outside
-// the limits even when a plan was built with other limits (a property over
+// the limits even when a sweep was built with other limits (a property over
 // random targets).
 func TestCheckKeepsLimits(t *testing.T) {
 	b := simBench(t)
@@ -200,7 +200,7 @@ func TestCheckKeepsLimits(t *testing.T) {
 }
 
 // FuzzSpec: any protobuf-JSON input either fails to decode, is refused with
-// field errors, or gives a plan whose every point is inside the limits.
+// field errors, or gives a sweep whose every point is inside the limits.
 func FuzzSpec(f *testing.F) {
 	f.Add(`{"axes":[{"kind":"AXIS_KIND_GDD_PS2","range":{"from":-20,"to":20,"count":5}}],"gateMs":10}`)
 	f.Add(`{"axes":[{"kind":"AXIS_KIND_POWER_UW","range":{"from":0.05,"to":100,"count":7},"spacing":"POWER_SPACING_AMPLITUDE"},{"kind":"AXIS_KIND_DETUNING_MEV","list":{"values":[-0.1,0,0.1]}}],"gateMs":1,"snake":true}`)
@@ -220,7 +220,7 @@ func FuzzSpec(f *testing.F) {
 			return
 		}
 		if p.Points == 0 {
-			t.Fatal("valid plan with no points")
+			t.Fatal("valid sweep with no points")
 		}
 		// Spot-check points, including the last.
 		for _, seq := range []uint64{0, p.Points / 2, p.Points - 1} {
@@ -229,7 +229,7 @@ func FuzzSpec(f *testing.F) {
 				t.Fatalf("point %d: %d values for %d axes", seq, len(vals), len(p.Axes))
 			}
 			if err := p.Check(tg); err != nil {
-				t.Fatalf("point %d of a valid plan fails the interlock: %v", seq, err)
+				t.Fatalf("point %d of a valid sweep fails the interlock: %v", seq, err)
 			}
 		}
 	})
