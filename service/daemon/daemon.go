@@ -170,7 +170,16 @@ func Start(ctx context.Context, cfg Config) (*Daemon, error) {
 		return nil, fmt.Errorf("--listen %s: %w", cfg.Listen, err)
 	}
 	guard := &auth.Guard{Tokens: tokens, Audit: st, Logger: log}
+	codec, err := rpc.ServerCodec()
+	if err != nil {
+		lis.Close()
+		b.Close()
+		st.Close()
+		return nil, err
+	}
 	srv := grpc.NewServer(append(serverOpts,
+		// Point events are encoded once for all watchers of a scan.
+		codec,
 		// Overnight watches cross lab networks: keep idle links alive.
 		grpc.KeepaliveParams(keepalive.ServerParameters{Time: 30 * time.Second, Timeout: 10 * time.Second}),
 		grpc.KeepaliveEnforcementPolicy(keepalive.EnforcementPolicy{MinTime: 10 * time.Second, PermitWithoutStream: true}),
@@ -178,7 +187,7 @@ func Start(ctx context.Context, cfg Config) (*Daemon, error) {
 		grpc.ChainUnaryInterceptor(guard.Unary),
 		grpc.ChainStreamInterceptor(guard.Stream),
 	)...)
-	glissv1.RegisterScanServiceServer(srv, &rpc.Scans{Engine: eng})
+	glissv1.RegisterScanServiceServer(srv, &rpc.Scans{Engine: eng, SharedEncoding: true})
 	glissv1.RegisterBenchServiceServer(srv, &rpc.Bench{Engine: eng})
 	glissv1.RegisterAuditServiceServer(srv, &rpc.Audit{Store: st})
 	extra, err := registerServices(ctx, srv, eng, st, b, cfg)

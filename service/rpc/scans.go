@@ -12,6 +12,11 @@ import (
 type Scans struct {
 	glissv1.UnimplementedScanServiceServer
 	Engine *engine.Engine
+	// SharedEncoding encodes each point event once for all its watchers;
+	// it needs the server to run with ServerCodec.
+	SharedEncoding bool
+
+	events eventCache
 }
 
 func needID(id string) error {
@@ -67,7 +72,19 @@ func (s *Scans) WatchScan(req *glissv1.WatchScanRequest, stream glissv1.ScanServ
 	if err := needID(req.GetId()); err != nil {
 		return err
 	}
-	return toStatus(s.Engine.Watch(stream.Context(), req.GetId(), req.GetFromSeq(), stream.Send))
+	s.events.join(req.GetId())
+	defer s.events.leave(req.GetId())
+	send := func(ev *glissv1.ScanEvent) error {
+		if p := ev.GetPoint(); p != nil && s.SharedEncoding {
+			b, err := s.events.encoded(p)
+			if err != nil {
+				return err
+			}
+			return stream.SendMsg(&preEncoded{b: b})
+		}
+		return stream.Send(ev)
+	}
+	return toStatus(s.Engine.Watch(stream.Context(), req.GetId(), req.GetFromSeq(), send))
 }
 
 // ReadPoints streams stored points.
