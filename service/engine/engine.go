@@ -109,7 +109,8 @@ type run struct {
 	mu      sync.Mutex
 	rec     *glissv1.Scan
 	sweep   *sweep.Sweep
-	version uint64 // incremented on each record change
+	wd      *watchdog // bounds each point's time while the scan runs
+	version uint64    // incremented on each record change
 	// changes counts record changes and log lines, for watchers to skip
 	// looking at an unchanged record (readable without mu).
 	changes atomic.Uint64

@@ -98,6 +98,8 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 		e.log.Error("record state", "scan", id, "err", err)
 	}
 
+	r.wd = newWatchdog(ctx)
+	defer r.wd.close()
 	last := sweep.Target{} // what this run has commanded so far
 	if err := e.setFixed(ctx, r, &last); err != nil {
 		if !e.holdOnError(ctx, r, fmt.Sprintf("fixed settings: %v", err), err, &last) {
@@ -554,10 +556,20 @@ func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *sweep.Ta
 	if err := r.sweep.Check(t); err != nil {
 		return nil, err
 	}
-	// The point is finished even when the daemon is asked to stop.
-	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), e.opts.PointTimeout+r.sweep.Gate+r.sweep.Settle+e.tempBudget(r.sweep, t))
-	defer cancel()
+	// The point is finished even when the daemon is asked to stop; the
+	// watchdog bounds its time.
 	started := e.opts.Now()
+	pctx := r.wd.begin(started.Add(e.opts.PointTimeout + r.sweep.Gate + r.sweep.Settle + e.tempBudget(r.sweep, t)))
+	defer r.wd.end()
+	p, err := e.measure(pctx, r, seq, idx, values, t, started, last)
+	if err != nil && pctx.Err() != nil {
+		return nil, fmt.Errorf("%w (%v)", err, r.wd.cause(pctx))
+	}
+	return p, err
+}
+
+// measure is acquire's work within the point's context.
+func (e *Engine) measure(pctx context.Context, r *run, seq uint64, idx []uint32, values []float64, t sweep.Target, started time.Time, last *sweep.Target) (*glissv1.Point, error) {
 	if err := e.command(pctx, r.sweep, t, last); err != nil {
 		return nil, err
 	}
