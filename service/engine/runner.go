@@ -616,7 +616,7 @@ func (e *Engine) measure(pctx context.Context, r *run, seq uint64, idx []uint32,
 	if err != nil {
 		return nil, instErr(e.bench, drivers.RoleCounter, fmt.Errorf("counter %q: gate %v: %w", e.bench.ByRole(drivers.RoleCounter).Name, r.sweep.Gate, err))
 	}
-	if want := len(c.Channels()); len(counts) != want {
+	if want := len(r.rec.Channels); len(counts) != want {
 		return nil, fmt.Errorf("counter %q: %d channels returned, %d expected", e.bench.ByRole(drivers.RoleCounter).Name, len(counts), want)
 	}
 	p.Counts = counts
@@ -647,7 +647,7 @@ func (e *Engine) interlockAfter(ctx context.Context, r *run, p *glissv1.Point) s
 	var reason string
 	if ce := e.bench.ByRole(drivers.RoleCounter); ce != nil && len(ce.Limits.CountRateMaxHz) > 0 {
 		gateS := p.GateMs / 1000
-		for i, ch := range e.bench.Counter().Channels() {
+		for i, ch := range r.rec.Channels { // the counter's channels, recorded at submit
 			if ceil, ok := ce.Limits.CountRateMaxHz[ch]; ok && ceil > 0 && i < len(p.Counts) {
 				if rate := float64(p.Counts[i]) / gateS; rate > ceil {
 					reason = fmt.Sprintf("interlock: count rate %.4g /s on channel %s above its ceiling %.4g /s at point %d", rate, ch, ceil, p.Seq)
