@@ -552,8 +552,14 @@ func (e *Engine) Manual(ctx context.Context, fn func(ctx context.Context, b *dri
 		return &BusyError{ScanID: "(another manual command)"}
 	default:
 		h := e.holder
-		e.mu.Unlock()
-		return &BusyError{ScanID: h}
+		// A scan whose end is already recorded (and announced to its
+		// watchers) no longer touches the instruments; its runner is only
+		// letting go of the bench. Take it over rather than refuse.
+		if r := e.runs[h]; r == nil || !doneWithBench(glissv1.ScanState(r.state.Load())) {
+			e.mu.Unlock()
+			return &BusyError{ScanID: h}
+		}
+		e.holder = "manual"
 	}
 	e.mu.Unlock()
 	defer func() {
@@ -563,6 +569,12 @@ func (e *Engine) Manual(ctx context.Context, fn func(ctx context.Context, b *dri
 		e.signal()
 	}()
 	return fn(ctx, e.bench)
+}
+
+// doneWithBench reports whether a scan in state s has finished with the
+// instruments for good (or until a resume requeues it).
+func doneWithBench(s glissv1.ScanState) bool {
+	return isTerminal(s) || s == glissv1.ScanState_SCAN_STATE_INTERRUPTED
 }
 
 // Holder returns the id of the scan holding the bench ("" when free).
