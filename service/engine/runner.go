@@ -100,7 +100,8 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 
 	r.wd = newWatchdog(ctx)
 	defer r.wd.close()
-	last := sweep.Target{} // what this run has commanded so far
+	storeCtx := context.WithoutCancel(ctx) // points are stored even during shutdown
+	last := sweep.Target{}                 // what this run has commanded so far
 	if err := e.setFixed(ctx, r, &last); err != nil {
 		if !e.holdOnError(ctx, r, fmt.Sprintf("fixed settings: %v", err), err, &last) {
 			return
@@ -127,8 +128,7 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 			seq = e.waitStored(ctx, r)
 			continue
 		}
-		// The point is stored even when the daemon is shutting down.
-		if err := e.store.AppendPoint(context.WithoutCancel(ctx), p, func(err error) { e.pointDurable(r, p, err) }); err != nil {
+		if err := e.store.AppendPoint(storeCtx, p, func(err error) { e.pointDurable(r, p, err) }); err != nil {
 			if !e.holdOnError(ctx, r, fmt.Sprintf("point %d: %v", seq, err), err, &last) {
 				return
 			}

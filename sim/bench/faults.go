@@ -181,5 +181,6 @@ func (b *base) fault(ctx context.Context, op string, isMove bool) (*Fault, error
 	case FaultError:
 		return nil, fmt.Errorf("%s %q: %s: reply %q: %w", b.kind, b.name, op, f.Reply, ErrReply)
 	}
-	return &f, nil
+	out := f // only this copy escapes: no allocation on the common no-fault path
+	return &out, nil
 }
