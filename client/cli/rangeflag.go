@@ -2,6 +2,7 @@ package cli
 
 import (
 	"fmt"
+	"github.com/gliss-lab/gliss/sim/model"
 	"math"
 	"strconv"
 	"strings"
@@ -48,21 +49,7 @@ func ParseRange(s string) (from, to float64, n int, err error) {
 // RangeValues is the list of N evenly spaced values of a parsed range, FROM
 // first and TO last exactly (N = 1 gives FROM).
 func RangeValues(from, to float64, n int) []float64 {
-	if n <= 0 {
-		return nil
-	}
-	out := make([]float64, n)
-	if n == 1 {
-		out[0] = from
-		return out
-	}
-	// a convex combination: no overflow for any finite ends
-	for i := range out {
-		f := float64(i) / float64(n-1)
-		out[i] = from*(1-f) + to*f
-	}
-	out[n-1] = to
-	return out
+	return model.Linspace(from, to, n)
 }
 
 // ParseList parses comma-separated finite numbers (at most 100000).

@@ -250,17 +250,7 @@ func retry[T any](ctx context.Context, in *Instrument, what string, f func() (T,
 }
 
 func sleep(ctx context.Context, d time.Duration) error {
-	if d <= 0 {
-		return ctx.Err()
-	}
-	t := time.NewTimer(d)
-	defer t.Stop()
-	select {
-	case <-t.C:
-		return nil
-	case <-ctx.Done():
-		return ctx.Err()
-	}
+	return drivers.Wait(ctx, d)
 }
 
 // command sends a set command once (never retried here): it reads the

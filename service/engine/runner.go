@@ -716,17 +716,7 @@ func minPowerAngleDeg(c drivers.Calibration, l drivers.Limits) float64 {
 }
 
 func sleep(ctx context.Context, d time.Duration) error {
-	if d <= 0 {
-		return nil
-	}
-	t := time.NewTimer(d)
-	defer t.Stop()
-	select {
-	case <-t.C:
-		return nil
-	case <-ctx.Done():
-		return ctx.Err()
-	}
+	return drivers.Wait(ctx, d)
 }
 
 // Snapshot returns a copy of a live scan's record, or nil.

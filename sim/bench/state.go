@@ -11,6 +11,7 @@ import (
 	"sync/atomic"
 	"time"
 
+	"github.com/gliss-lab/gliss/drivers"
 	"github.com/gliss-lab/gliss/drivers/calib"
 	"github.com/gliss-lab/gliss/sim/cryostat"
 	"github.com/gliss-lab/gliss/sim/detection"
@@ -361,18 +362,7 @@ func (st *state) sleepUntil(ctx context.Context, deadline time.Time) error {
 	if st.instant {
 		return ctx.Err()
 	}
-	d := deadline.Sub(st.now())
-	if d <= 0 {
-		return ctx.Err()
-	}
-	t := time.NewTimer(d)
-	defer t.Stop()
-	select {
-	case <-ctx.Done():
-		return ctx.Err()
-	case <-t.C:
-		return nil
-	}
+	return drivers.Wait(ctx, deadline.Sub(st.now()))
 }
 
 // snapshot is the optical state at one instant, as the counter and the

@@ -38,17 +38,7 @@ type stateClock struct{ st *state }
 func (c stateClock) Now() time.Time { return c.st.now() }
 
 func (c stateClock) Sleep(ctx context.Context, d time.Duration) error {
-	if d <= 0 {
-		return ctx.Err()
-	}
-	t := time.NewTimer(d)
-	defer t.Stop()
-	select {
-	case <-ctx.Done():
-		return ctx.Err()
-	case <-t.C:
-		return nil
-	}
+	return drivers.Wait(ctx, d)
 }
 
 // stepClock is the cryostat's time source on an Instant bench: nothing

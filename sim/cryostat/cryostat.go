@@ -47,17 +47,7 @@ type wallClock struct{}
 func (wallClock) Now() time.Time { return time.Now() }
 
 func (wallClock) Sleep(ctx context.Context, d time.Duration) error {
-	if d <= 0 {
-		return ctx.Err()
-	}
-	t := time.NewTimer(d)
-	defer t.Stop()
-	select {
-	case <-ctx.Done():
-		return ctx.Err()
-	case <-t.C:
-		return nil
-	}
+	return drivers.Wait(ctx, d)
 }
 
 // Options configure a simulated cryostat. Zero fields take the Demo value.
