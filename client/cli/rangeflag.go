@@ -2,10 +2,11 @@ package cli
 
 import (
 	"fmt"
-	"github.com/gliss-lab/gliss/sim/model"
 	"math"
 	"strconv"
 	"strings"
+
+	"github.com/gliss-lab/gliss/sim/model"
 )
 
 // MaxRangeN is the largest N that ParseRange accepts (and the most values
