@@ -30,7 +30,7 @@ type Store interface {
 	PutScan(ctx context.Context, sc *glissv1.Scan) error
 	GetScan(id string) (*glissv1.Scan, error)
 	ListScans(f store.ListFilter) ([]*glissv1.Scan, string, error)
-	AppendPoint(ctx context.Context, p *glissv1.Point, done func(err error)) error
+	AppendPoint(ctx context.Context, p *glissv1.Point, done store.Done) error
 	Sync(ctx context.Context) error
 	PointCount(id string) (uint64, error)
 	ReadPoints(ctx context.Context, id string, from uint64, fn func(*glissv1.Point) error) error

@@ -107,6 +107,8 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 			return
 		}
 	}
+	// One callback for every point of the run: the store hands the point back.
+	durable := func(p *glissv1.Point, err error) { e.pointDurable(r, p, err) }
 	for seq := start; seq < r.sweep.Points; {
 		// Control requests take effect between points.
 		stop, held := e.between(ctx, r, &last)
@@ -128,7 +130,7 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 			seq = e.waitStored(ctx, r)
 			continue
 		}
-		if err := e.store.AppendPoint(storeCtx, p, func(err error) { e.pointDurable(r, p, err) }); err != nil {
+		if err := e.store.AppendPoint(storeCtx, p, durable); err != nil {
 			if !e.holdOnError(ctx, r, fmt.Sprintf("point %d: %v", seq, err), err, &last) {
 				return
 			}
@@ -551,7 +553,11 @@ func same(a, b *float64) bool { return a != nil && b != nil && *a == *b }
 
 // acquire measures point seq: set, settle, read the power meter, gate.
 func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *sweep.Target) (*glissv1.Point, error) {
-	idx, values, t := r.sweep.At(seq)
+	// The point's parts that live exactly as long as it does, in one
+	// allocation: the axis indices and values, the settings, the records
+	// and values the point refers to.
+	parts := new(pointParts)
+	idx, values, t := r.sweep.AtInto(seq, parts.index[:], parts.values[:])
 	// Interlock: checked again before every command.
 	if err := r.sweep.Check(t); err != nil {
 		return nil, err
@@ -561,7 +567,7 @@ func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *sweep.Ta
 	started := e.opts.Now()
 	pctx := r.wd.begin(started.Add(e.opts.PointTimeout + r.sweep.Gate + r.sweep.Settle + e.tempBudget(r.sweep, t)))
 	defer r.wd.end()
-	p, err := e.measure(pctx, r, seq, idx, values, t, started, last)
+	p, err := e.measure(pctx, r, parts, seq, idx, values, t, started, last)
 	if err != nil && pctx.Err() != nil {
 		return nil, fmt.Errorf("%w (%v)", err, r.wd.cause(pctx))
 	}
@@ -569,7 +575,7 @@ func (e *Engine) acquire(ctx context.Context, r *run, seq uint64, last *sweep.Ta
 }
 
 // measure is acquire's work within the point's context.
-func (e *Engine) measure(pctx context.Context, r *run, seq uint64, idx []uint32, values []float64, t sweep.Target, started time.Time, last *sweep.Target) (*glissv1.Point, error) {
+func (e *Engine) measure(pctx context.Context, r *run, parts *pointParts, seq uint64, idx []uint32, values []float64, t sweep.Target, started time.Time, last *sweep.Target) (*glissv1.Point, error) {
 	if err := e.command(pctx, r.sweep, t, last); err != nil {
 		return nil, err
 	}
@@ -578,9 +584,6 @@ func (e *Engine) measure(pctx context.Context, r *run, seq uint64, idx []uint32,
 			return nil, err
 		}
 	}
-	// The point's parts that live exactly as long as it does, in one
-	// allocation instead of six.
-	parts := new(pointParts)
 	p := &parts.point
 	*p = glissv1.Point{
 		ScanId: r.rec.Id, Seq: seq, Index: idx, Values: values,
@@ -626,6 +629,8 @@ func (e *Engine) measure(pctx context.Context, r *run, seq uint64, idx []uint32,
 
 // pointParts is a point with the messages and values it points to.
 type pointParts struct {
+	index                 [sweep.MaxAxes]uint32
+	values                [sweep.AtBufFloats]float64
 	point                 glissv1.Point
 	commanded             glissv1.Commanded
 	stamps                [2]timestamppb.Timestamp

@@ -66,7 +66,7 @@ func BenchmarkAppendDurable(b *testing.B) {
 				b.Fatal(err)
 			}
 			var failed atomic.Int64
-			done := func(err error) {
+			done := func(_ *glissv1.Point, err error) {
 				if err != nil {
 					failed.Add(1)
 				}
@@ -235,7 +235,7 @@ func BenchmarkDurableVsRaw(b *testing.B) {
 			db := openRawBolt(b)
 			keys := make([]byte, 8*batch)
 			var failed atomic.Int64
-			done := func(err error) {
+			done := func(_ *glissv1.Point, err error) {
 				if err != nil {
 					failed.Add(1)
 				}

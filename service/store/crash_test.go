@@ -58,7 +58,7 @@ func runCrashChild() bool {
 	var line []byte
 	deadline := time.Now().Add(time.Minute)
 	for seq := n; time.Now().Before(deadline); seq++ {
-		err := s.AppendPoint(ctx, testPoint(crashScanID, seq), func(err error) {
+		err := s.AppendPoint(ctx, testPoint(crashScanID, seq), func(_ *glissv1.Point, err error) {
 			// Runs on the writer goroutine, after the fsync: one write
 			// syscall per point, so the parent has it before the next one.
 			if err != nil {

@@ -100,9 +100,9 @@ type results struct {
 
 func newResults() *results { return &results{errs: make(map[uint64]error)} }
 
-func (r *results) done(seq uint64) func(error) {
+func (r *results) done(seq uint64) func(*glissv1.Point, error) {
 	r.wg.Add(1)
-	return func(err error) {
+	return func(_ *glissv1.Point, err error) {
 		r.mu.Lock()
 		defer r.mu.Unlock()
 		if _, dup := r.errs[seq]; dup {

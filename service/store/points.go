@@ -28,6 +28,9 @@ const readChunk = 512
 // After a failed commit the points queued behind it get ErrSequence too (the
 // failed ones are missing): the caller resumes from PointCount.
 //
+// done gets p back, so that one function can serve every point of a scan
+// (no closure per point).
+//
 // When AppendPoint returns an error (invalid point, ctx ended, ErrClosed),
 // done is never called.
 //
@@ -36,7 +39,7 @@ const readChunk = 512
 // AppendPoint returns nil (reading it is fine). A point that cannot be
 // encoded gets its error through done, like ErrSequence: nothing of it is
 // stored and the points queued behind it get ErrSequence.
-func (s *Store) AppendPoint(ctx context.Context, p *glissv1.Point, done func(err error)) error {
+func (s *Store) AppendPoint(ctx context.Context, p *glissv1.Point, done Done) error {
 	if p == nil {
 		return fmt.Errorf("store: append point: nil point: %w", ErrInvalid)
 	}

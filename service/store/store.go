@@ -90,6 +90,10 @@ const (
 
 var marshalOpts = proto.MarshalOptions{Deterministic: true}
 
+// Done receives the outcome of an appended point: nil once the transaction
+// that holds it has committed, or why nothing of it is stored.
+type Done = func(p *glissv1.Point, err error)
+
 // Store is glissd's database. Its methods are safe for concurrent use.
 type Store struct {
 	path string
@@ -224,8 +228,8 @@ type op struct {
 	data   []byte
 	point  *glissv1.Point // opPoint: encoded into data by encodePoints
 	scan   *glissv1.Scan
-	done   func(error) // points
-	reply  chan error  // everything else; buffered (1)
+	done   Done       // points
+	reply  chan error // everything else; buffered (1)
 }
 
 // submit queues o, blocking while the queue is full, honouring ctx.
@@ -401,7 +405,7 @@ func (s *Store) commit(batch []op) {
 		switch o.kind {
 		case opPoint:
 			if o.done != nil {
-				o.done(e)
+				o.done(o.point, e)
 			}
 		case opSync:
 			o.reply <- s.errSinceSync
@@ -426,7 +430,10 @@ func (s *Store) encodePoints(batch []op, errs []error) {
 		}
 		start := len(buf)
 		var err error
-		buf, err = marshalOpts.MarshalAppend(buf, o.point)
+		var ok bool
+		if buf, ok = appendPointWire(buf, o.point); !ok {
+			buf, err = marshalOpts.MarshalAppend(buf[:start], o.point)
+		}
 		if err != nil {
 			buf = buf[:start]
 			errs[i] = fmt.Errorf("scan %q: point %d: encode: %w", o.scanID, o.seq, err)

@@ -272,7 +272,7 @@ func TestAppendPointSequence(t *testing.T) {
 	}
 	// Invalid points are refused at once and done is never called.
 	called := false
-	if err := s.AppendPoint(ctx, &glissv1.Point{Seq: 7}, func(error) { called = true }); !errors.Is(err, ErrInvalid) {
+	if err := s.AppendPoint(ctx, &glissv1.Point{Seq: 7}, func(*glissv1.Point, error) { called = true }); !errors.Is(err, ErrInvalid) {
 		t.Fatalf("point without scan id: err = %v, want ErrInvalid", err)
 	}
 	if err := s.AppendPoint(ctx, nil, nil); !errors.Is(err, ErrInvalid) {
@@ -286,7 +286,7 @@ func TestAppendPointSequence(t *testing.T) {
 	}
 	cancelled, cancel := context.WithCancel(ctx)
 	cancel()
-	if err := s.AppendPoint(cancelled, testPoint("01C", 7), func(error) { called = true }); !errors.Is(err, context.Canceled) {
+	if err := s.AppendPoint(cancelled, testPoint("01C", 7), func(*glissv1.Point, error) { called = true }); !errors.Is(err, context.Canceled) {
 		t.Fatalf("cancelled ctx: err = %v", err)
 	}
 	if err := s.Sync(ctx); err != nil || called {
@@ -539,7 +539,7 @@ func TestQueueFullHonoursContext(t *testing.T) {
 	short, cancel := context.WithTimeout(ctx, 50*time.Millisecond)
 	defer cancel()
 	called := false
-	err := s.AppendPoint(short, testPoint("01Q", uint64(capacity)+1), func(error) { called = true })
+	err := s.AppendPoint(short, testPoint("01Q", uint64(capacity)+1), func(*glissv1.Point, error) { called = true })
 	if !errors.Is(err, context.DeadlineExceeded) {
 		t.Fatalf("append to a full queue: err = %v, want DeadlineExceeded", err)
 	}
@@ -577,7 +577,7 @@ func TestConcurrentScans(t *testing.T) {
 			defer wg.Done()
 			var failed atomic.Int64
 			for seq := uint64(0); seq < n; seq++ {
-				if err := s.AppendPoint(ctx, testPoint(id, seq), func(err error) {
+				if err := s.AppendPoint(ctx, testPoint(id, seq), func(_ *glissv1.Point, err error) {
 					if err != nil {
 						failed.Add(1)
 					}

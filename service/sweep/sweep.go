@@ -661,8 +661,21 @@ func (p *Sweep) Index(seq uint64, idx []uint32) []uint32 {
 // rest) and the settings the Target points to.
 func (p *Sweep) At(seq uint64) (idx []uint32, values []float64, t Target) {
 	n := len(p.Axes)
-	idx = p.Index(seq, make([]uint32, 0, n))
-	buf := make([]float64, 3*n)
+	return p.AtInto(seq, make([]uint32, 0, n), make([]float64, 3*n))
+}
+
+// AtBufFloats is the length of the buf AtInto needs for a sweep of MaxAxes
+// axes (3 per axis: its value and up to two settings).
+const AtBufFloats = 3 * MaxAxes
+
+// AtInto is At without allocating: idx is built in idxBuf's array
+// (capacity ≥ len(p.Axes)) and values and the settings the Target points
+// to live in buf (length ≥ 3·len(p.Axes)). Both must stay unchanged as long
+// as the results are used.
+func (p *Sweep) AtInto(seq uint64, idxBuf []uint32, buf []float64) (idx []uint32, values []float64, t Target) {
+	n := len(p.Axes)
+	idx = p.Index(seq, idxBuf[:0:n])
+	buf = buf[: 3*n : 3*n]
 	values = buf[:n:n]
 	for i, j := range idx {
 		values[i] = p.Axes[i].Values[j]
