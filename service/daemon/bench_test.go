@@ -354,7 +354,7 @@ func BenchmarkDurableThroughput(b *testing.B) {
 	const n = 50000
 	d, c := benchDaemon(b, daemon.Config{Bench: quietBench(b)})
 	ctx := context.Background()
-	var rates, perCommit, rPol, r256, r4096, qPol, q256, q4096, allocs []float64
+	var rates, perCommit, rPol, r256, r4096, qPol, q256, q4096, allocs, heapBytes []float64
 	for i := 0; i < b.N; i++ {
 		var m0, m1 runtime.MemStats
 		runtime.ReadMemStats(&m0)
@@ -369,6 +369,7 @@ func BenchmarkDurableThroughput(b *testing.B) {
 		// every heap allocation in the process during the run (engine,
 		// simulated instruments, store writer, gRPC, the polling client)
 		allocs = append(allocs, float64(m1.Mallocs-m0.Mallocs)/n)
+		heapBytes = append(heapBytes, float64(m1.TotalAlloc-m0.TotalAlloc)/n)
 		// Items include the scan's few record updates (create, start, end),
 		// each committed at once; at 50,000 points they weigh < 0.01 %.
 		pc := float64(after.Items-before.Items) / float64(max(after.Commits-before.Commits, 1))
@@ -394,6 +395,7 @@ func BenchmarkDurableThroughput(b *testing.B) {
 	b.ReportMetric(medianOf(rates), "points/s_engine")
 	b.ReportMetric(medianOf(perCommit), "points/commit")
 	b.ReportMetric(medianOf(allocs), "allocs/point")
+	b.ReportMetric(medianOf(heapBytes), "heap-B/point")
 	b.ReportMetric(medianOf(rPol), "records/s_bbolt_policy")
 	b.ReportMetric(medianOf(r256), "records/s_bbolt256")
 	b.ReportMetric(medianOf(r4096), "records/s_bbolt4096")

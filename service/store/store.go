@@ -30,6 +30,7 @@ import (
 	"log/slog"
 	"os"
 	"path/filepath"
+	"runtime"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -82,6 +83,7 @@ type Options struct {
 const (
 	defaultLockTimeout = 2 * time.Second
 	defaultMaxBatch    = 4096
+	initialMmapBytes   = 1 << 30
 	// MaxBatchLimit bounds Options.MaxBatch (the queue holds 2 × MaxBatch items).
 	MaxBatchLimit = 1 << 16
 	// MaxScanIDBytes bounds scan ids (they are bbolt keys and bucket names).
@@ -142,6 +144,13 @@ func Open(path string, o Options) (*Store, error) {
 	db, err := bolt.Open(path, 0o600, &bolt.Options{
 		Timeout: o.LockTimeout,
 		MaxSize: o.maxSizeBytes,
+		// Address space, not memory: pages count as resident only when
+		// touched. Without it bbolt remaps the file each time it outgrows
+		// the map (doubling from 32 KiB), and a remap waits for every open
+		// read transaction (a long export) while the writer holds points,
+		// and copies every key and value of the open transaction. Not on
+		// Windows, where bbolt grows the file to the size of the map.
+		InitialMmapSize: initialMmapSize(),
 	})
 	if err != nil {
 		if errors.Is(err, berrors.ErrTimeout) {
@@ -171,6 +180,14 @@ func Open(path string, o Options) (*Store, error) {
 	}
 	go s.run()
 	return s, nil
+}
+
+// initialMmapSize is the map bbolt starts with (Options.InitialMmapSize).
+func initialMmapSize() int {
+	if runtime.GOOS == "windows" {
+		return 0
+	}
+	return initialMmapBytes
 }
 
 func syncDir(dir string) error {
@@ -274,12 +291,15 @@ func (s *Store) call(ctx context.Context, o op) error {
 func (s *Store) run() {
 	defer close(s.stopped)
 	batch := make([]op, 0, s.opts.MaxBatch)
-	var pending *op // a barrier (check) read while gathering, run after the commit
+	// A barrier (check) read while gathering, run after the commit. A value,
+	// not a pointer to the loop's op: that would move every op to the heap.
+	var pending op
+	hasPending := false
 	var timer *time.Timer
 	for {
 		var first op
-		if pending != nil {
-			first, pending = *pending, nil
+		if hasPending {
+			first, pending, hasPending = pending, op{}, false
 		} else {
 			var ok bool
 			if first, ok = <-s.queue; !ok {
@@ -326,7 +346,7 @@ func (s *Store) run() {
 				break
 			}
 			if o.kind == opCheck {
-				pending = &o
+				pending, hasPending = o, true
 				break
 			}
 			batch = append(batch, o)
