@@ -56,6 +56,7 @@ func runDemo(ctx context.Context, env *Env, args []string) error {
 		return err
 	}
 	defer logf.Close()
+	daemon.ApplyGCPolicy() // the embedded daemon runs as glissd does
 	d, err := daemon.Start(ctx, daemon.Config{
 		Listen: "127.0.0.1:0", DataDir: filepath.Join(*dir, "data"), SimSeed: *seed, SimSpeed: *speed,
 		Logger: slog.New(slog.NewTextHandler(logf, nil)),

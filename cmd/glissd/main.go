@@ -72,6 +72,8 @@ func run(args []string) int {
 	}
 	log := slog.New(slog.NewTextHandler(os.Stderr, &slog.HandlerOptions{Level: level}))
 	slog.SetDefault(log)
+	gcPct, memLimit := daemon.ApplyGCPolicy()
+	log.Debug("garbage collector", "gogc_percent", gcPct, "memory_limit_mib", memLimit>>20)
 
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()

@@ -171,7 +171,7 @@ func (r *run) takeWriteErr() error {
 
 // recentCap bounds the ring of recent durable points that watchers read
 // without going to the store (pointers to points already in memory).
-const recentCap = 16384
+const recentCap = 4096
 const logCap = 256
 
 func newID(now time.Time) string {

@@ -5,6 +5,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"math"
 	"os"
 	"slices"
 	"strings"
@@ -450,6 +451,15 @@ func TestBatching(t *testing.T) {
 			if items := after.Items - before.Items; items != tc.points {
 				t.Fatalf("Stats: %d items committed for %d points", items, tc.points)
 			}
+			// Every commit is in one commit-time bucket.
+			d := after.Sub(before)
+			var timed uint64
+			for _, c := range d.CommitTimes {
+				timed += c
+			}
+			if timed != commits || d.Commits != commits || d.CommitTimeQuantile(1) == 0 {
+				t.Fatalf("Stats: %d commits, %d in the commit-time buckets (max ≤ %v)", commits, timed, d.CommitTimeQuantile(1))
+			}
 			if n, _ := s.PointCount("01H"); n != tc.points {
 				t.Fatalf("%d points stored, want %d", n, tc.points)
 			}
@@ -681,5 +691,30 @@ func TestOpenOptions(t *testing.T) {
 			s.Close()
 		}
 		t.Fatalf("Open of a layout-2 file: %v", err)
+	}
+}
+
+// The quantile is the bound of the bucket that holds it.
+func TestCommitTimeQuantile(t *testing.T) {
+	var s Stats
+	if s.CommitTimeQuantile(0.99) != 0 {
+		t.Fatal("quantile of no commits is not 0")
+	}
+	for _, c := range []struct {
+		d time.Duration
+		n uint64
+	}{{50 * time.Microsecond, 90}, {time.Millisecond, 9}, {time.Hour, 1}} {
+		s.CommitTimes[commitBucket(c.d)] += c.n
+	}
+	for _, c := range []struct {
+		q    float64
+		want time.Duration
+	}{{0.5, 62500 * time.Nanosecond}, {0.9, 62500 * time.Nanosecond}, {0.95, time.Millisecond}, {0.99, time.Millisecond}, {1, math.MaxInt64}} {
+		if got := s.CommitTimeQuantile(c.q); got != c.want {
+			t.Errorf("q %v: %v, want %v", c.q, got, c.want)
+		}
+	}
+	if b := commitBucket(CommitBucketBound(3) + 1); b != 4 {
+		t.Errorf("just above bound 3: bucket %d, want 4", b)
 	}
 }

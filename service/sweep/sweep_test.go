@@ -2,6 +2,7 @@ package sweep
 
 import (
 	"math"
+	"slices"
 	"testing"
 	"time"
 
@@ -223,14 +224,28 @@ func FuzzSpec(f *testing.F) {
 			t.Fatal("valid sweep with no points")
 		}
 		// Spot-check points, including the last.
+		var idxBuf [MaxAxes]uint32
+		var valBuf [AtBufFloats]float64
 		for _, seq := range []uint64{0, p.Points / 2, p.Points - 1} {
-			_, vals, tg := p.At(seq)
+			idx, vals, tg := p.At(seq)
 			if len(vals) != len(p.Axes) {
 				t.Fatalf("point %d: %d values for %d axes", seq, len(vals), len(p.Axes))
+			}
+			// The engine's allocation-free form gives the same point.
+			idx2, vals2, tg2 := p.AtInto(seq, idxBuf[:], valBuf[:])
+			if !slices.Equal(idx, idx2) || !slices.Equal(vals, vals2) || !sameTarget(tg, tg2) {
+				t.Fatalf("point %d: AtInto gives %v %v %+v, At %v %v %+v", seq, idx2, vals2, tg2, idx, vals, tg)
 			}
 			if err := p.Check(tg); err != nil {
 				t.Fatalf("point %d of a valid sweep fails the interlock: %v", seq, err)
 			}
 		}
 	})
+}
+
+// sameTarget: the same settings (the values the pointers point to).
+func sameTarget(a, b Target) bool {
+	eq := func(x, y *float64) bool { return (x == nil) == (y == nil) && (x == nil || *x == *y) }
+	return eq(a.StageMM, b.StageMM) && eq(a.GDDPS2, b.GDDPS2) && eq(a.AngleDeg, b.AngleDeg) &&
+		eq(a.PowerUW, b.PowerUW) && eq(a.DetuningMeV, b.DetuningMeV) && eq(a.TemperatureK, b.TemperatureK)
 }
