@@ -131,6 +131,11 @@ type run struct {
 
 	pauseReq, cancelReq string // reasons; "" when not requested
 	pauseSet, cancelSet bool
+	// attention: set (under mu, or pmu for a write error) whenever
+	// pauseSet, cancelSet or writeErr is set, so that between needs no lock
+	// on the usual point. It may stay set after they are cleared: between
+	// then looks under the locks and clears it.
+	attention atomic.Bool
 	// autoResume: paused for an unavailable instrument, which the runner
 	// probes; the scan resumes by itself when it answers. An operator's
 	// pause clears it.
@@ -158,6 +163,13 @@ func (r *run) setDurable(n uint64) {
 	r.durable = n
 	r.writeErr = nil
 	r.pmu.Unlock()
+}
+
+// writeErrPending: a write error is waiting for takeWriteErr.
+func (r *run) writeErrPending() bool {
+	r.pmu.Lock()
+	defer r.pmu.Unlock()
+	return r.writeErr != nil
 }
 
 // takeWriteErr returns and clears the first write error since the last call.
@@ -372,6 +384,7 @@ func (e *Engine) Pause(ctx context.Context, id, reason string) (*glissv1.Scan, e
 	switch r.rec.State {
 	case glissv1.ScanState_SCAN_STATE_RUNNING:
 		r.pauseSet, r.pauseReq = true, reason
+		r.attention.Store(true)
 	case glissv1.ScanState_SCAN_STATE_QUEUED:
 		// A queued scan is paused in place: it keeps its place in the queue
 		// but the runner skips it until it is resumed.
@@ -503,6 +516,7 @@ func (e *Engine) Cancel(ctx context.Context, id, reason string) (*glissv1.Scan, 
 		return nil, fmt.Errorf("scan %s has already ended (%s): %w", id, short(r.rec.State), ErrState)
 	case running:
 		r.cancelSet, r.cancelReq = true, reason
+		r.attention.Store(true)
 		close(r.resume) // wake a paused runner
 		r.resume = make(chan struct{})
 	default: // queued or paused in the queue

@@ -141,6 +141,7 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 		if msg := e.interlockAfter(ctx, r, p); msg != "" {
 			r.mu.Lock()
 			r.pauseSet, r.pauseReq = true, msg
+			r.attention.Store(true)
 			r.mu.Unlock()
 		}
 	}
@@ -193,6 +194,7 @@ func (e *Engine) pointDurable(r *run, p *glissv1.Point, err error) {
 		// The runner pauses before its next point (see between).
 		if r.writeErr == nil {
 			r.writeErr = fmt.Errorf("store write failed at point %d: %w", p.Seq, err)
+			r.attention.Store(true)
 		}
 		r.pmu.Unlock()
 		return
@@ -223,6 +225,9 @@ func (e *Engine) pointDurable(r *run, p *glissv1.Point, err error) {
 // paused and resumed.
 func (e *Engine) between(ctx context.Context, r *run, last *sweep.Target) (stop, held bool) {
 	for {
+		if !r.attention.Load() && ctx.Err() == nil {
+			return false, held // nothing requested, nothing failed: no lock taken
+		}
 		if err := r.takeWriteErr(); err != nil {
 			if !e.hold(ctx, r, err.Error(), nil, last) {
 				return true, held
@@ -250,6 +255,12 @@ func (e *Engine) between(ctx context.Context, r *run, last *sweep.Target) (stop,
 			}
 			held = true
 			continue
+		}
+		// Nothing left to act on. A write error that arrives now sets the
+		// flag again after this store (pmu, then the flag, in pointDurable).
+		r.attention.Store(false)
+		if r.writeErrPending() {
+			r.attention.Store(true)
 		}
 		r.mu.Unlock()
 		return false, held
