@@ -150,8 +150,10 @@ func Open(path string, o Options) (*Store, error) {
 		// touched. Without it bbolt remaps the file each time it outgrows
 		// the map (doubling from 32 KiB), and a remap waits for every open
 		// read transaction (a long export) while the writer holds points,
-		// and copies every key and value of the open transaction. Not on
-		// Windows, where bbolt grows the file to the size of the map.
+		// and copies every key and value of the open transaction. The file
+		// then grows in bbolt's 16 MiB steps from the start (a new store is
+		// a 16 MiB sparse file holding a few hundred KiB). Not on Windows,
+		// where bbolt grows the file to the size of the map.
 		InitialMmapSize: initialMmapSize(),
 	})
 	if err != nil {
