@@ -87,6 +87,11 @@ func TestOperatorHoldStopsAutoResume(t *testing.T) {
 	if !strings.Contains(p.Reason, "unavailable") || !strings.Contains(p.Reason, `stage "stage"`) {
 		t.Errorf("pause reason %q", p.Reason)
 	}
+	// The driver's error names the stage and its move: the engine does not
+	// say it again.
+	if n := strings.Count(p.Reason, `stage "stage": move to`); n != 1 {
+		t.Errorf("pause reason names the stage's move %d times: %q", n, p.Reason)
+	}
 	held, err := c.Scans.PauseScan(ctx, &glissv1.PauseScanRequest{Id: sc.Id, Reason: "operator checks the cable"})
 	if err != nil {
 		t.Fatal(err)

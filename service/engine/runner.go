@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"strings"
 	"time"
 
 	"golang.org/x/sync/errgroup"
@@ -408,6 +409,23 @@ type instrumentError struct {
 func (e *instrumentError) Error() string { return e.err.Error() }
 func (e *instrumentError) Unwrap() error { return e.err }
 
+// instFail is the error of an instrument's failed action: `KIND "NAME":
+// ACTION: CAUSE`; or the driver's own error when that already begins by
+// naming the instrument (`ROLE "NAME": …` or `KIND "NAME": …`, as gliss's
+// drivers write it, with their action), so that no message says the same
+// thing twice.
+func instFail(b *drivers.Bench, r drivers.Role, kind, action string, cause error) error {
+	name := ""
+	if en := b.ByRole(r); en != nil {
+		name = en.Name
+	}
+	msg := cause.Error()
+	if strings.HasPrefix(msg, fmt.Sprintf("%s %q: ", r, name)) || strings.HasPrefix(msg, fmt.Sprintf("%s %q: ", kind, name)) {
+		return instErr(b, r, cause)
+	}
+	return instErr(b, r, fmt.Errorf("%s %q: %s: %w", kind, name, action, cause))
+}
+
 func instErr(b *drivers.Bench, r drivers.Role, err error) error {
 	if err == nil {
 		return nil
@@ -503,7 +521,7 @@ func (e *Engine) command(ctx context.Context, pl *sweep.Sweep, t sweep.Target, l
 		mm := *t.StageMM
 		g.Go(func() error {
 			if err := s.MoveToMM(gctx, mm); err != nil {
-				return instErr(b, drivers.RoleStage, fmt.Errorf("stage %q: move to %.3f mm: %w", b.ByRole(drivers.RoleStage).Name, mm, err))
+				return instFail(b, drivers.RoleStage, "stage", fmt.Sprintf("move to %.3f mm", mm), err)
 			}
 			return nil
 		})
@@ -513,7 +531,7 @@ func (e *Engine) command(ctx context.Context, pl *sweep.Sweep, t sweep.Target, l
 		deg := *t.AngleDeg
 		g.Go(func() error {
 			if err := a.SetAngleDeg(gctx, deg); err != nil {
-				return instErr(b, drivers.RoleAttenuator, fmt.Errorf("attenuator %q: rotate to %.3f°: %w", b.ByRole(drivers.RoleAttenuator).Name, deg, err))
+				return instFail(b, drivers.RoleAttenuator, "attenuator", fmt.Sprintf("rotate to %.3f°", deg), err)
 			}
 			return nil
 		})
@@ -523,7 +541,7 @@ func (e *Engine) command(ctx context.Context, pl *sweep.Sweep, t sweep.Target, l
 		mev := *t.DetuningMeV
 		g.Go(func() error {
 			if err := l.SetDetuningMeV(gctx, mev); err != nil {
-				return instErr(b, drivers.RoleLaser, fmt.Errorf("laser %q: detune to %.4f meV: %w", b.ByRole(drivers.RoleLaser).Name, mev, err))
+				return instFail(b, drivers.RoleLaser, "laser", fmt.Sprintf("detune to %.4f meV", mev), err)
 			}
 			return nil
 		})
@@ -531,10 +549,9 @@ func (e *Engine) command(ctx context.Context, pl *sweep.Sweep, t sweep.Target, l
 	if t.TemperatureK != nil && !same(t.TemperatureK, last.TemperatureK) {
 		th := b.Thermometer()
 		k := *t.TemperatureK
-		name := b.ByRole(drivers.RoleThermometer).Name
 		g.Go(func() error {
 			if err := th.SetSetpointK(gctx, k); err != nil {
-				return instErr(b, drivers.RoleThermometer, fmt.Errorf("thermometer %q: setpoint %.3f K: %w", name, k, err))
+				return instFail(b, drivers.RoleThermometer, "thermometer", fmt.Sprintf("setpoint %.3f K", k), err)
 			}
 			if pl == nil {
 				return nil
@@ -546,7 +563,7 @@ func (e *Engine) command(ctx context.Context, pl *sweep.Sweep, t sweep.Target, l
 				err = waitStable(gctx, th, k, pl.TempToleranceK, b.Scale(pl.TempHold), b.Scale(pl.TempTimeout))
 			}
 			if err != nil {
-				return instErr(b, drivers.RoleThermometer, fmt.Errorf("thermometer %q: %w", name, err))
+				return instFail(b, drivers.RoleThermometer, "thermometer", fmt.Sprintf("wait for %.3f K ± %g K", k, pl.TempToleranceK), err)
 			}
 			return nil
 		})
@@ -609,7 +626,7 @@ func (e *Engine) measure(pctx context.Context, r *run, parts *pointParts, seq ui
 	if pm := e.bench.PowerMeter(); pm != nil {
 		uw, err := pm.PowerUW(pctx)
 		if err != nil {
-			return nil, instErr(e.bench, drivers.RolePowerMeter, fmt.Errorf("power meter %q: read: %w", e.bench.ByRole(drivers.RolePowerMeter).Name, err))
+			return nil, instFail(e.bench, drivers.RolePowerMeter, "power meter", "read", err)
 		}
 		if math.IsNaN(uw) || math.IsInf(uw, 0) {
 			return nil, fmt.Errorf("power meter %q: reading %v is not a number", e.bench.ByRole(drivers.RolePowerMeter).Name, uw)
@@ -620,7 +637,7 @@ func (e *Engine) measure(pctx context.Context, r *run, parts *pointParts, seq ui
 	if th := e.bench.Thermometer(); th != nil {
 		k, err := th.TemperatureK(pctx)
 		if err != nil {
-			return nil, instErr(e.bench, drivers.RoleThermometer, fmt.Errorf("thermometer %q: read: %w", e.bench.ByRole(drivers.RoleThermometer).Name, err))
+			return nil, instFail(e.bench, drivers.RoleThermometer, "thermometer", "read", err)
 		}
 		parts.temperatureK = k
 		p.TemperatureK = &parts.temperatureK
@@ -628,7 +645,7 @@ func (e *Engine) measure(pctx context.Context, r *run, parts *pointParts, seq ui
 	c := e.bench.Counter()
 	counts, err := c.Count(pctx, r.sweep.Gate)
 	if err != nil {
-		return nil, instErr(e.bench, drivers.RoleCounter, fmt.Errorf("counter %q: gate %v: %w", e.bench.ByRole(drivers.RoleCounter).Name, r.sweep.Gate, err))
+		return nil, instFail(e.bench, drivers.RoleCounter, "counter", fmt.Sprintf("gate %v", r.sweep.Gate), err)
 	}
 	if want := len(r.rec.Channels); len(counts) != want {
 		return nil, fmt.Errorf("counter %q: %d channels returned, %d expected", e.bench.ByRole(drivers.RoleCounter).Name, len(counts), want)
