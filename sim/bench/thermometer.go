@@ -5,7 +5,7 @@ import (
 	"fmt"
 	"hash/fnv"
 	"math"
-	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/gliss-lab/gliss/drivers"
@@ -47,24 +47,18 @@ func (c stateClock) Sleep(ctx context.Context, d time.Duration) error {
 // of a stability wait), so an Instant bench stays deterministic bit for bit
 // and a 30-minute stability wait costs microseconds.
 type stepClock struct {
-	mu sync.Mutex
-	t  time.Time
+	origin time.Time
+	ns     atomic.Int64 // time since origin; read on every point, so no lock
 }
 
-func (c *stepClock) Now() time.Time {
-	c.mu.Lock()
-	defer c.mu.Unlock()
-	return c.t
-}
+func (c *stepClock) Now() time.Time { return c.origin.Add(time.Duration(c.ns.Load())) }
 
 func (c *stepClock) Sleep(ctx context.Context, d time.Duration) error {
 	if err := ctx.Err(); err != nil {
 		return err
 	}
 	if d > 0 {
-		c.mu.Lock()
-		c.t = c.t.Add(d)
-		c.mu.Unlock()
+		c.ns.Add(int64(d))
 	}
 	return nil
 }
@@ -74,7 +68,7 @@ func (c *stepClock) Sleep(ctx context.Context, d time.Duration) error {
 func newCryostat(o cryostat.Options, seed uint64, speed float64, instant bool, st *state) (*cryostat.Cryostat, error) {
 	o.Speed = speed
 	if instant {
-		o.Clock = &stepClock{t: time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)}
+		o.Clock = &stepClock{origin: time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)}
 	} else {
 		o.Clock = stateClock{st}
 	}
