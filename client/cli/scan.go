@@ -317,7 +317,7 @@ func submitAndMaybeWatch(ctx context.Context, env *Env, cf *commonFlags, spec *g
 	}
 	fmt.Fprintln(env.Stdout, sc.Id)
 	pv := sc.GetPreview()
-	fmt.Fprintf(env.Stderr, "queued %s: %d points, about %s, stage travel %.1f mm\n", sc.Id, pv.GetPoints(), fmtDuration(pv.GetEstimatedDurationS()), pv.GetStageTravelMm())
+	fmt.Fprintf(env.Stderr, "queued %s: %d points, about %s%s, stage travel %.1f mm\n", sc.Id, pv.GetPoints(), fmtDuration(pv.GetEstimatedDurationS()), tempNote(pv), pv.GetStageTravelMm())
 	if !*cf.watch {
 		return nil
 	}
@@ -504,7 +504,7 @@ func runScanShow(ctx context.Context, env *Env, args []string) error {
 	w := env.Stdout
 	pv := sc.GetPreview()
 	fmt.Fprintf(w, "scan      %s  %q\nstate     %s  (%s)\npoints    %d of %d\nbench     %s\n", sc.Id, sc.GetSpec().GetName(), stateName(sc.State), sc.Reason, sc.PointsStored, pv.GetPoints(), sc.Bench)
-	fmt.Fprintf(w, "estimate  %s, stage travel %.1f mm, rotation %.1f°\n", fmtDuration(pv.GetEstimatedDurationS()), pv.GetStageTravelMm(), pv.GetRotationDeg())
+	fmt.Fprintf(w, "estimate  %s%s, stage travel %.1f mm, rotation %.1f°\n", fmtDuration(pv.GetEstimatedDurationS()), tempNote(pv), pv.GetStageTravelMm(), pv.GetRotationDeg())
 	for i, a := range sc.GetSpec().GetAxes() {
 		fmt.Fprintf(w, "axis %d    %s %s\n", i, client.AxisColumn(a.Kind), describeValues(a))
 	}
@@ -743,4 +743,17 @@ func writeOut(env *Env, path string, fn func(io.Writer) (uint64, error)) error {
 	}
 	fmt.Fprintf(env.Stderr, "wrote %d points to %s\n", n, path)
 	return nil
+}
+
+// tempNote tells that an estimate leaves out the cryostat's approach to
+// each new temperature setpoint (only the stability hold is in it).
+func tempNote(pv *glissv1.Preview) string {
+	switch n := pv.GetTemperatureChanges(); n {
+	case 0:
+		return ""
+	case 1:
+		return " + the cryostat's approach to 1 temperature setpoint"
+	default:
+		return fmt.Sprintf(" + the cryostat's approach to %d temperature setpoints", n)
+	}
 }

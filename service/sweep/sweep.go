@@ -751,50 +751,78 @@ func MoveTime(dist, v, a float64) time.Duration {
 }
 
 // Preview estimates the cost of the sweep, starting from the instruments'
-// current settings (start; nil fields: unknown, counted from the first point).
+// current settings (start; nil fields: unknown, counted from the first
+// setting). The fixed settings are commanded first, then the points; each
+// temperature setpoint change waits for the sample's stability, which takes
+// at least TempHold (counted) plus the cryostat's approach to the setpoint
+// (not known here, so not counted: Preview.temperature_changes says how many
+// such waits the estimate leaves out).
 func (p *Sweep) Preview(start Target) *glissv1.Preview {
 	pv := &glissv1.Preview{Points: p.Points}
 	for _, a := range p.Axes {
 		pv.AxisCounts = append(pv.AxisCounts, uint32(len(a.Values)))
 	}
 	cur := start
-	cur.Merge(p.Fixed)
-	var total time.Duration
-	l := p.limits
+	total := p.advance(&cur, p.Fixed, pv)
 	for seq := uint64(0); seq < p.Points; seq++ {
 		_, _, t := p.At(seq)
-		var move time.Duration
-		if t.StageMM != nil {
-			if cur.StageMM != nil {
-				d := *t.StageMM - *cur.StageMM
-				pv.StageTravelMm += math.Abs(d)
-				move = max(move, MoveTime(d, l.stage.StageSpeedMMPerS, l.stage.StageAccelMMPerS2))
-			}
-			cur.StageMM = t.StageMM
-		}
-		if t.AngleDeg != nil {
-			if cur.AngleDeg != nil {
-				d := *t.AngleDeg - *cur.AngleDeg
-				pv.RotationDeg += math.Abs(d)
-				move = max(move, MoveTime(d, l.att.RotationSpeedDegPerS, 0))
-			}
-			cur.AngleDeg = t.AngleDeg
-		}
-		if t.DetuningMeV != nil {
-			if cur.DetuningMeV != nil && l.laser.DetuningSpeedMeVPerS > 0 {
-				move = max(move, MoveTime(*t.DetuningMeV-*cur.DetuningMeV, l.laser.DetuningSpeedMeVPerS, 0))
-			}
-			cur.DetuningMeV = t.DetuningMeV
-		}
-		total += move + p.Settle + p.Gate
+		total += p.advance(&cur, t, pv) + p.Settle + p.Gate
 		if seq > 200_000 {
 			// Long scans: extrapolate rather than walk every point.
-			total = time.Duration(float64(total) * float64(p.Points) / float64(seq+1))
-			pv.StageTravelMm *= float64(p.Points) / float64(seq+1)
-			pv.RotationDeg *= float64(p.Points) / float64(seq+1)
+			f := float64(p.Points) / float64(seq+1)
+			total = time.Duration(float64(total) * f)
+			pv.StageTravelMm *= f
+			pv.RotationDeg *= f
+			pv.TemperatureChanges = uint32(math.Round(float64(pv.TemperatureChanges) * f))
 			break
 		}
 	}
 	pv.EstimatedDurationS = total.Seconds() + float64(p.Points)*pointOverheadS
 	return pv
+}
+
+// advance moves the estimate's instruments from cur to t: it adds t's
+// travel to pv and returns how long the settings take, the slowest of the
+// instruments (they are set in parallel). A setting with no known start
+// (nil in cur) takes no counted travel.
+func (p *Sweep) advance(cur *Target, t Target, pv *glissv1.Preview) time.Duration {
+	var move time.Duration
+	l := p.limits
+	if t.StageMM != nil {
+		if cur.StageMM != nil {
+			d := *t.StageMM - *cur.StageMM
+			pv.StageTravelMm += math.Abs(d)
+			move = max(move, MoveTime(d, l.stage.StageSpeedMMPerS, l.stage.StageAccelMMPerS2))
+		}
+		cur.StageMM = t.StageMM
+	}
+	if t.AngleDeg != nil {
+		if cur.AngleDeg != nil {
+			d := *t.AngleDeg - *cur.AngleDeg
+			pv.RotationDeg += math.Abs(d)
+			move = max(move, MoveTime(d, l.att.RotationSpeedDegPerS, 0))
+		}
+		cur.AngleDeg = t.AngleDeg
+	}
+	if t.DetuningMeV != nil {
+		if cur.DetuningMeV != nil && l.laser.DetuningSpeedMeVPerS > 0 {
+			move = max(move, MoveTime(*t.DetuningMeV-*cur.DetuningMeV, l.laser.DetuningSpeedMeVPerS, 0))
+		}
+		cur.DetuningMeV = t.DetuningMeV
+	}
+	if t.TemperatureK != nil {
+		if cur.TemperatureK == nil || *cur.TemperatureK != *t.TemperatureK {
+			pv.TemperatureChanges++
+			move = max(move, p.TempHold)
+		}
+		cur.TemperatureK = t.TemperatureK
+	}
+	// The GDD and the power ride on the stage and the attenuator.
+	if t.GDDPS2 != nil {
+		cur.GDDPS2 = t.GDDPS2
+	}
+	if t.PowerUW != nil {
+		cur.PowerUW = t.PowerUW
+	}
+	return move
 }

@@ -118,6 +118,39 @@ func TestPreview(t *testing.T) {
 	}
 }
 
+// The preview of a temperature series counts each setpoint change with its
+// stability hold, and the move to a fixed setting from where the stage is.
+func TestPreviewTemperatureAndFixed(t *testing.T) {
+	b := simBench(t)
+	hold := 20.0
+	spec := &glissv1.ScanSpec{GateMs: 100, TemperatureHoldS: &hold, Axes: []*glissv1.Axis{
+		{Kind: glissv1.AxisKind_AXIS_KIND_TEMPERATURE_K, Values: &glissv1.Axis_List{List: &glissv1.ValueList{Values: []float64{1.5, 4, 8, 20}}}},
+		rng(glissv1.AxisKind_AXIS_KIND_ANGLE_DEG, 10, 30, 3),
+	}, Fixed: []*glissv1.Setpoint{{Kind: glissv1.AxisKind_AXIS_KIND_STAGE_MM, Value: 700}}}
+	p, err := New(spec, b)
+	if err != nil {
+		t.Fatal(err)
+	}
+	stage, ang := 600.0, 10.0
+	pv := p.Preview(Target{StageMM: &stage, AngleDeg: &ang})
+	if pv.TemperatureChanges != 4 {
+		t.Errorf("%d temperature changes from an unknown setpoint, want 4", pv.TemperatureChanges)
+	}
+	// 4 holds of 20 s, 12 gates of 0.1 s, and more for the moves.
+	if pv.EstimatedDurationS < 4*hold+12*0.1 {
+		t.Errorf("estimate %.1f s, want ≥ %.1f s (4 holds and 12 gates)", pv.EstimatedDurationS, 4*hold+12*0.1)
+	}
+	if pv.StageTravelMm != 100 {
+		t.Errorf("stage travel %v mm, want the 100 mm to the fixed 700 mm", pv.StageTravelMm)
+	}
+	// Starting at the first setpoint: one wait fewer, 20 s less.
+	k := 1.5
+	pv2 := p.Preview(Target{StageMM: &stage, AngleDeg: &ang, TemperatureK: &k})
+	if pv2.TemperatureChanges != 3 || math.Abs(pv.EstimatedDurationS-pv2.EstimatedDurationS-hold) > 1e-9 {
+		t.Errorf("from 1.5 K: %d changes, %.3f s (from unknown: %.3f s)", pv2.TemperatureChanges, pv2.EstimatedDurationS, pv.EstimatedDurationS)
+	}
+}
+
 // TestBadSpecs: every bad spec names its field.
 func TestBadSpecs(t *testing.T) {
 	b := simBench(t)
