@@ -32,6 +32,7 @@ import (
 	"os"
 	"path/filepath"
 	"runtime"
+	"strconv"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -186,9 +187,11 @@ func Open(path string, o Options) (*Store, error) {
 	return s, nil
 }
 
-// initialMmapSize is the map bbolt starts with (Options.InitialMmapSize).
+// initialMmapSize is the map bbolt starts with (Options.InitialMmapSize):
+// bbolt's default (0) on Windows and where 1 GiB of address space is dear
+// (32-bit).
 func initialMmapSize() int {
-	if runtime.GOOS == "windows" {
+	if runtime.GOOS == "windows" || strconv.IntSize == 32 {
 		return 0
 	}
 	return initialMmapBytes
