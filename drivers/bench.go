@@ -76,6 +76,12 @@ func (c Calibration) PowerUW(deg float64) (float64, error) { return c.Attenuator
 // AngleDeg is the attenuator angle that gives power uw by the law in use.
 func (c Calibration) AngleDeg(uw float64) (float64, error) { return c.AttenuatorLaw().AngleDeg(uw) }
 
+// AngleWithinDeg is an attenuator angle in [minDeg, maxDeg] that gives power
+// uw by the law in use (calib.Attenuator.AngleWithinDeg).
+func (c Calibration) AngleWithinDeg(uw, minDeg, maxDeg float64) (float64, error) {
+	return c.AttenuatorLaw().AngleWithinDeg(uw, minDeg, maxDeg)
+}
+
 // PowerRangeUW is the range of powers the law in use can give (for an ND
 // wheel: over its graded sector).
 func (c Calibration) PowerRangeUW() (lo, hi float64) {

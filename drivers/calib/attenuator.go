@@ -237,6 +237,26 @@ func (a Attenuator) AngleDeg(uw float64) (float64, error) {
 	return a.ND.AngleDeg(uw)
 }
 
+// AngleWithinDeg is an angle in [minDeg, maxDeg] that gives power uw: for
+// a half-wave plate the one of its equivalent angles in the range (see
+// Malus.AngleWithinDeg), for an ND wheel its only angle, if in the range.
+func (a Attenuator) AngleWithinDeg(uw, minDeg, maxDeg float64) (float64, error) {
+	if err := a.Validate(); err != nil {
+		return 0, err
+	}
+	if a.Malus != nil {
+		return a.Malus.AngleWithinDeg(uw, minDeg, maxDeg)
+	}
+	deg, err := a.ND.AngleDeg(uw)
+	if err != nil {
+		return 0, err
+	}
+	if deg < minDeg || deg > maxDeg {
+		return 0, fmt.Errorf("power %g µW needs the ND wheel at %.4g°, outside the allowed %g–%g°: %w", uw, deg, minDeg, maxDeg, ErrRange)
+	}
+	return deg, nil
+}
+
 func finite(v ...float64) bool {
 	for _, x := range v {
 		if math.IsNaN(x) || math.IsInf(x, 0) {

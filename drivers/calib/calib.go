@@ -160,6 +160,39 @@ func (m Malus) AngleDeg(uw float64) (float64, error) {
 	return m.Theta0Deg + math.Acos(math.Sqrt(c2))*90/math.Pi, nil
 }
 
+// AngleWithinDeg is an angle in [minDeg, maxDeg] that gives power uw. The
+// law repeats every 90° and is symmetric about θ0, so a power has the
+// angles θ0 ± a + k·90°: AngleDeg's (θ0 + a) when it is in the range, else
+// the one in the range nearest to it. None in the range is an ErrRange error.
+func (m Malus) AngleWithinDeg(uw, minDeg, maxDeg float64) (float64, error) {
+	deg, err := m.AngleDeg(uw)
+	if err != nil {
+		return 0, err
+	}
+	if deg >= minDeg && deg <= maxDeg {
+		return deg, nil
+	}
+	a := deg - m.Theta0Deg
+	best, found := 0.0, false
+	for _, base := range [2]float64{m.Theta0Deg + a, m.Theta0Deg - a} {
+		// every base + k·90° in [minDeg, maxDeg]
+		for k := math.Ceil((minDeg - base) / 90); base+k*90 <= maxDeg; k++ {
+			c := base + k*90
+			if c < minDeg {
+				continue
+			}
+			if !found || math.Abs(c-deg) < math.Abs(best-deg) {
+				best, found = c, true
+			}
+		}
+	}
+	if !found {
+		return 0, fmt.Errorf("power %g µW needs an attenuator angle of %.4g° ± k·90° or %.4g° ± k·90°, none in the allowed %g–%g°: %w",
+			uw, deg, m.Theta0Deg-a, minDeg, maxDeg, ErrRange)
+	}
+	return best, nil
+}
+
 // ErrRange marks a value outside a calibration's range.
 var ErrRange = errors.New("outside the calibrated range")
 

@@ -114,3 +114,45 @@ func TestMalusInverse(t *testing.T) {
 		t.Errorf("250 µW: err %v, want ErrRange", err)
 	}
 }
+
+// A power has four angles per half turn of the plate (Malus's law,
+// cos² of 2(θ − θ0)); the one within the attenuator's limits is used.
+func TestMalusAngleWithin(t *testing.T) {
+	m := Malus{PMinUW: 0.05, PMaxUW: 200, Theta0Deg: 40}
+	cases := []struct {
+		uw, lo, hi float64
+		want       float64 // NaN: none in range
+	}{
+		// 100 µW: cos² = 0.49987…, a ≈ 22.504°: θ0 + a ≈ 62.5° is outside [0, 60]; θ0 − a is inside.
+		{100, 0, 60, 40 - 22.5040},
+		{100, 0, 90, 40 + 22.5040},        // the usual branch when it fits
+		{100, 70, 130, 40 - 22.5040 + 90}, // the next half turn
+		{100, 63, 107, math.NaN()},        // 62.5° and 107.5° just miss
+		{200, 0, 30, math.NaN()},          // only 40° + k·90° gives full power
+		{200, 120, 140, 130},
+	}
+	for _, c := range cases {
+		got, err := m.AngleWithinDeg(c.uw, c.lo, c.hi)
+		if math.IsNaN(c.want) {
+			if !errors.Is(err, ErrRange) {
+				t.Errorf("%g µW in [%g, %g]°: %v, %v; want ErrRange", c.uw, c.lo, c.hi, got, err)
+			}
+			continue
+		}
+		if err != nil || math.Abs(got-c.want) > 1e-3 || got < c.lo || got > c.hi {
+			t.Errorf("%g µW in [%g, %g]°: %.4f°, %v; want %.4f°", c.uw, c.lo, c.hi, got, err, c.want)
+			continue
+		}
+		if p := m.PowerUW(got); math.Abs(p-c.uw) > 1e-9*c.uw {
+			t.Errorf("%g µW in [%g, %g]°: PowerUW(%.4f°) = %g", c.uw, c.lo, c.hi, got, p)
+		}
+	}
+	// An ND wheel has one angle: in the range or an error.
+	nd := Attenuator{ND: &NDWheel{P0UW: 200, ODPerDeg: 0.01, MinDeg: 0, MaxDeg: 300}}
+	if _, err := nd.AngleWithinDeg(2, 0, 100); !errors.Is(err, ErrRange) {
+		t.Errorf("ND wheel, 2 µW (at 200°) within 0–100°: %v, want ErrRange", err)
+	}
+	if deg, err := nd.AngleWithinDeg(2, 0, 250); err != nil || math.Abs(deg-200) > 1e-9 {
+		t.Errorf("ND wheel, 2 µW within 0–250°: %v°, %v; want 200°", deg, err)
+	}
+}

@@ -259,7 +259,7 @@ func (s *Bench) SetInstrument(ctx context.Context, req *glissv1.SetInstrumentReq
 			if l.PowerMaxUW > 0 && p.PowerUw > l.PowerMaxUW {
 				return nil, invalidField(field, "%g µW above the bench's maximum power %g µW", p.PowerUw, l.PowerMaxUW)
 			}
-			deg, err = cal.AngleDeg(p.PowerUw)
+			deg, err = cal.AngleWithinDeg(p.PowerUw, l.AngleMinDeg, l.AngleMaxDeg)
 			if err != nil {
 				return nil, invalidField(field, "%v", err)
 			}

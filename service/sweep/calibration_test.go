@@ -84,3 +84,37 @@ func TestNDWheelLaw(t *testing.T) {
 		t.Errorf("0.1 µW through the ND wheel: %v", err)
 	}
 }
+
+// TestPowerOnTheOtherBranch: a half-wave plate whose maximum sits near the
+// end of its allowed angles gives a power on the other side of the maximum
+// (Malus's law is symmetric about θ0) instead of refusing it.
+func TestPowerOnTheOtherBranch(t *testing.T) {
+	b := simBench(t)
+	l := b.ByRole(drivers.RoleAttenuator).Limits
+	cal := b.CurrentCalibration()
+	cal.Law = nil
+	// the maximum 5° below the upper angle limit: the usual branch (θ0 to
+	// θ0 + 45°) is almost all outside the limits
+	cal.Attenuator = calib.Malus{PMinUW: 0.05, PMaxUW: 200, Theta0Deg: l.AngleMaxDeg - 5}
+	cal.Version = 1
+	b.SetCalibration(cal)
+	spec := &glissv1.ScanSpec{GateMs: 1, Axes: []*glissv1.Axis{{Kind: glissv1.AxisKind_AXIS_KIND_POWER_UW,
+		Values: &glissv1.Axis_List{List: &glissv1.ValueList{Values: []float64{1, 50, 150}}}}}}
+	p, err := New(spec, b)
+	if err != nil {
+		t.Fatalf("powers reachable below the maximum refused: %v", err)
+	}
+	for seq := range p.Points {
+		_, v, tg := p.At(seq)
+		deg := *tg.AngleDeg
+		if deg < l.AngleMinDeg || deg > l.AngleMaxDeg {
+			t.Errorf("%g µW at %.3f°, outside %g–%g°", v[0], deg, l.AngleMinDeg, l.AngleMaxDeg)
+		}
+		if pw := cal.Attenuator.PowerUW(deg); math.Abs(pw-v[0]) > 1e-9*v[0] {
+			t.Errorf("%g µW: angle %.3f° gives %g µW", v[0], deg, pw)
+		}
+		if err := p.Check(tg); err != nil {
+			t.Errorf("%g µW: interlock refuses its own target: %v", v[0], err)
+		}
+	}
+}

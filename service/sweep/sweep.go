@@ -508,7 +508,7 @@ func (p *Sweep) checkPower(v float64) string {
 	if v < lo || v > hi {
 		return fmt.Sprintf("power %g µW outside the allowed %g–%g µW (attenuator range and the bench's maximum power)", v, lo, hi)
 	}
-	deg, err := p.cal.AngleDeg(v)
+	deg, err := p.angleFor(v)
 	if err != nil {
 		return err.Error()
 	}
@@ -516,6 +516,12 @@ func (p *Sweep) checkPower(v float64) string {
 		return fmt.Sprintf("power %g µW: %s", v, msg)
 	}
 	return ""
+}
+
+// angleFor is the attenuator angle within its limits that gives power uw.
+func (p *Sweep) angleFor(uw float64) (float64, error) {
+	l := p.limits.att
+	return p.cal.AngleWithinDeg(uw, l.AngleMinDeg, l.AngleMaxDeg)
 }
 
 // areaRange is the pulse-area range of the allowed powers.
@@ -557,14 +563,14 @@ func (p *Sweep) target(k glissv1.AxisKind, v float64) Target {
 			t.GDDPS2 = ptr(g)
 		}
 	case glissv1.AxisKind_AXIS_KIND_POWER_UW:
-		deg, _ := p.cal.AngleDeg(v)
+		deg, _ := p.angleFor(v)
 		t.AngleDeg, t.PowerUW = ptr(deg), ptr(v)
 	case glissv1.AxisKind_AXIS_KIND_ANGLE_DEG:
 		pw, _ := p.cal.PowerUW(v)
 		t.AngleDeg, t.PowerUW = ptr(v), ptr(pw)
 	case glissv1.AxisKind_AXIS_KIND_PULSE_AREA_PI:
 		pw := p.cal.PulseArea.PowerUW(v)
-		deg, _ := p.cal.AngleDeg(pw)
+		deg, _ := p.angleFor(pw)
 		t.AngleDeg, t.PowerUW = ptr(deg), ptr(pw)
 	case glissv1.AxisKind_AXIS_KIND_DETUNING_MEV:
 		t.DetuningMeV = ptr(v)
