@@ -444,3 +444,51 @@ func TestReplayUsesRecordedCalibration(t *testing.T) {
 		t.Errorf("version 2 commands the same angle %g° as version 1", pc[0].Commanded.GetAngleDeg())
 	}
 }
+
+// TestReplayControl: a replay runs on its own engine and bench, yet it is
+// paused, resumed and cancelled through ScanService like any scan.
+func TestReplayControl(t *testing.T) {
+	_, c := startDaemon(t, daemon.Config{SimInstant: true, SimSeed: 5})
+	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
+	defer cancel()
+	an := glissv1.NewAnalysisServiceClient(c.Conn())
+	// Laser noise on: every point solves the dot model (~1 ms), so the
+	// replay of 3000 points runs long enough to be caught.
+	orig, err := c.Submit(ctx, client.MapSpec(client.Range(-20, 20, 30), client.Range(1, 150, 100), client.Options{Name: "to replay", GateMS: 10}))
+	if err != nil {
+		t.Fatal(err)
+	}
+	orig = waitEnd(t, ctx, c, orig.Id)
+	r, err := an.ReplayScan(ctx, &glissv1.ReplayScanRequest{Id: orig.Id})
+	if err != nil {
+		t.Fatal(err)
+	}
+	id := r.Scan.Id
+	waitState(t, ctx, c, id, glissv1.ScanState_SCAN_STATE_RUNNING)
+	if _, err := c.Scans.PauseScan(ctx, &glissv1.PauseScanRequest{Id: id, Reason: "look at the first rows"}); err != nil {
+		t.Fatalf("pause a running replay: %v", err)
+	}
+	p := waitState(t, ctx, c, id, glissv1.ScanState_SCAN_STATE_PAUSED)
+	time.Sleep(100 * time.Millisecond)
+	if q, _ := c.Get(ctx, id); q.PointsStored != p.PointsStored {
+		t.Errorf("paused replay stored %d more points", q.PointsStored-p.PointsStored)
+	}
+	if _, err := c.Scans.ResumeScan(ctx, &glissv1.ResumeScanRequest{Id: id}); err != nil {
+		t.Fatalf("resume the replay: %v", err)
+	}
+	waitState(t, ctx, c, id, glissv1.ScanState_SCAN_STATE_RUNNING)
+	if _, err := c.Scans.CancelScan(ctx, &glissv1.CancelScanRequest{Id: id, Reason: "enough"}); err != nil {
+		t.Fatalf("cancel the replay: %v", err)
+	}
+	end := waitState(t, ctx, c, id, glissv1.ScanState_SCAN_STATE_CANCELLED)
+	if end.PointsStored >= orig.PointsStored || end.PointsStored < p.PointsStored {
+		t.Errorf("replay ended %v with %d of %d points (paused at %d)", end.State, end.PointsStored, orig.PointsStored, p.PointsStored)
+	}
+	// The replay's points are the original's, as far as they go.
+	pa, pb := points(t, ctx, c, orig.Id), points(t, ctx, c, id)
+	for i := range pb {
+		if !slices.Equal(pa[i].Counts, pb[i].Counts) {
+			t.Fatalf("point %d: replay counts %v, original %v", i, pb[i].Counts, pa[i].Counts)
+		}
+	}
+}

@@ -187,10 +187,11 @@ func Start(ctx context.Context, cfg Config) (*Daemon, error) {
 		grpc.ChainUnaryInterceptor(guard.Unary),
 		grpc.ChainStreamInterceptor(guard.Stream),
 	)...)
-	glissv1.RegisterScanServiceServer(srv, &rpc.Scans{Engine: eng, SharedEncoding: true})
+	scans := &rpc.Scans{Engine: eng, SharedEncoding: true}
+	glissv1.RegisterScanServiceServer(srv, scans)
 	glissv1.RegisterBenchServiceServer(srv, &rpc.Bench{Engine: eng})
 	glissv1.RegisterAuditServiceServer(srv, &rpc.Audit{Store: st})
-	extra, err := registerServices(ctx, srv, eng, st, b, cfg)
+	extra, err := registerServices(ctx, srv, eng, st, scans, cfg)
 	if err != nil {
 		lis.Close()
 		b.Close()

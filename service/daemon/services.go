@@ -31,7 +31,7 @@ import (
 // records the service's current record in the scan (SetCalibrationSource).
 // A put stores the version first, then swaps it in, so a scan never records
 // a version the store lacks.
-func registerServices(ctx context.Context, srv *grpc.Server, eng *engine.Engine, st *store.Store, b *drivers.Bench, cfg Config) ([]func(context.Context) error, error) {
+func registerServices(ctx context.Context, srv *grpc.Server, eng *engine.Engine, st *store.Store, scans *rpc.Scans, cfg Config) ([]func(context.Context) error, error) {
 	cals, err := rpc.NewCalibrations(eng, st)
 	if err != nil {
 		return nil, err
@@ -46,8 +46,11 @@ func registerServices(ctx context.Context, srv *grpc.Server, eng *engine.Engine,
 	// A simulated daemon's own noise settings carry over to its replays
 	// (the scan record does not say whether the noise was off).
 	quiet := cfg.BenchFile == "" && cfg.SimQuiet
-	rp := &replayer{store: st, log: log, quiet: quiet, runs: map[string]context.CancelFunc{}}
+	rp := &replayer{store: st, log: log, quiet: quiet, runs: map[string]replayRun{}}
 	glissv1.RegisterAnalysisServiceServer(srv, &rpc.Analysis{Store: st, Replay: rp.replay})
+	// A live replay is paused, resumed and cancelled through ScanService
+	// like any scan: its own engine does it.
+	scans.Route = rp.control
 	return []func(context.Context) error{rp.stop}, nil
 }
 
@@ -65,9 +68,25 @@ type replayer struct {
 	quiet bool // simulated laser and power meter without noise (glissd --sim-quiet)
 
 	mu      sync.Mutex
-	runs    map[string]context.CancelFunc // live replays by new scan id
+	runs    map[string]replayRun // live replays by new scan id
 	wg      sync.WaitGroup
 	stopped bool
+}
+
+// replayRun is a live replay: its engine and how to stop it.
+type replayRun struct {
+	eng    *engine.Engine
+	cancel context.CancelFunc
+}
+
+// control is the engine of live replay id (nil: not a live replay).
+func (r *replayer) control(id string) rpc.ScanControl {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	if run, ok := r.runs[id]; ok {
+		return run.eng
+	}
+	return nil
 }
 
 // replayPoll is how often a replay engine is asked whether its scan ended.
@@ -114,7 +133,7 @@ func (r *replayer) replay(ctx context.Context, orig *glissv1.Scan) (*glissv1.Sca
 		return nil, err
 	}
 	r.mu.Lock()
-	r.runs[sc.GetId()] = cancel
+	r.runs[sc.GetId()] = replayRun{eng: eng, cancel: cancel}
 	if r.stopped {
 		cancel()
 	}
@@ -159,8 +178,8 @@ func (r *replayer) replay(ctx context.Context, orig *glissv1.Scan) (*glissv1.Sca
 func (r *replayer) stop(ctx context.Context) error {
 	r.mu.Lock()
 	r.stopped = true
-	for _, cancel := range r.runs {
-		cancel()
+	for _, run := range r.runs {
+		run.cancel()
 	}
 	r.mu.Unlock()
 	done := make(chan struct{})
