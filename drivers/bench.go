@@ -31,6 +31,10 @@ type Limits struct {
 	DetuningSpeedMeVPerS float64
 
 	TemperatureMinK, TemperatureMaxK float64
+	// TemperatureTimeConstantS is the time constant of the sample's
+	// first-order approach to a new setpoint, s (instrument time), for
+	// previews (0: not known).
+	TemperatureTimeConstantS float64
 }
 
 // Entry is one configured instrument of a bench.

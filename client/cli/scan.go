@@ -745,15 +745,11 @@ func writeOut(env *Env, path string, fn func(io.Writer) (uint64, error)) error {
 	return nil
 }
 
-// tempNote tells that an estimate leaves out the cryostat's approach to
-// each new temperature setpoint (only the stability hold is in it).
+// tempNote tells when an estimate leaves out the sample's approach to a
+// temperature setpoint (no time constant known for the thermometer).
 func tempNote(pv *glissv1.Preview) string {
-	switch n := pv.GetTemperatureChanges(); n {
-	case 0:
+	if !pv.GetTemperatureApproachUnknown() {
 		return ""
-	case 1:
-		return " + the cryostat's approach to 1 temperature setpoint"
-	default:
-		return fmt.Sprintf(" + the cryostat's approach to %d temperature setpoints", n)
 	}
+	return fmt.Sprintf(" + the sample's approach to its temperature setpoints (%d; not known to gliss)", pv.GetTemperatureChanges())
 }

@@ -137,8 +137,9 @@ type laserLimits struct {
 }
 
 type thermoLimits struct {
-	MinK float64 `bench:"min_k,required"`
-	MaxK float64 `bench:"max_k,required"`
+	MinK          float64 `bench:"min_k,required"`
+	MaxK          float64 `bench:"max_k,required"`
+	TimeConstantS float64 `bench:"time_constant_s"`
 }
 
 var roles = []drivers.Role{drivers.RoleStage, drivers.RoleAttenuator, drivers.RolePowerMeter,
@@ -347,8 +348,11 @@ func decodeLimits(d *yamlnode.Decoder, n *yaml.Node, key string, role drivers.Ro
 		d.Decode(n, key, &t)
 		if len(d.Errors()) == before {
 			rangeCheck(t.MinK, t.MaxK, "max_k")
+			if t.TimeConstantS < 0 {
+				d.Errorf(yamlnode.Child(n, "time_constant_s"), yamlnode.Key(key, "time_constant_s"), "%g: must be ≥ 0", t.TimeConstantS)
+			}
 		}
-		l.TemperatureMinK, l.TemperatureMaxK = t.MinK, t.MaxK
+		l.TemperatureMinK, l.TemperatureMaxK, l.TemperatureTimeConstantS = t.MinK, t.MaxK, t.TimeConstantS
 	}
 	if empty && len(d.Errors()) > before {
 		// Point missing-limits errors at the instrument, key "limits".

@@ -116,6 +116,7 @@ func TestErrorsNameFileLineAndKey(t *testing.T) {
 		{"malus order", strings.Replace(good, "pmax_uw: 200", "pmax_uw: 0.01", 1), `bad.yaml:4: key calibration.attenuator.pmax_uw: 0.01: want pmax_uw > pmin_uw (0.05)`},
 		{"sim takes its own keys", strings.Replace(good, "driver: lineproto", "driver: sim", 1), `bad.yaml:11: key instruments[0].settings.transport: unknown key`},
 		{"counter channels", strings.Replace(strings.Replace(good, "role: stage", "role: counter", 1), "    limits: {min_mm: 0, max_mm: 1200, speed_mm_per_s: 25}\n", "", 1), `key instruments[0].settings.commands.count: missing (required for role counter)`},
+		{"thermometer time constant", strings.Replace(strings.Replace(good, "role: stage", "role: thermometer", 1), "limits: {min_mm: 0, max_mm: 1200, speed_mm_per_s: 25}", "limits: {min_k: 1.5, max_k: 300, time_constant_s: -5}", 1), `key instruments[0].limits.time_constant_s: -5: must be ≥ 0`},
 		{"yaml syntax", good + "  - name: [\n", `bad.yaml: yaml: line`},
 		{"alias", strings.Replace(good, "bench: t", "bench: &a t", 1) + "x: *a\n", `key x:`},
 	}

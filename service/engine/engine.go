@@ -226,6 +226,13 @@ func (e *Engine) currentTarget() sweep.Target {
 			t.DetuningMeV = &d
 		}
 	}
+	if th := e.bench.Thermometer(); th != nil {
+		// the sample's temperature now, where its approach to a first
+		// setpoint starts
+		if k, err := th.TemperatureK(ctx); err == nil {
+			t.TemperatureK = &k
+		}
+	}
 	return t
 }
 

@@ -147,7 +147,7 @@ func (s *Bench) describe(ctx context.Context, e *drivers.Entry) *glissv1.Instrum
 			fail("role", errRole)
 			break
 		}
-		lim.TemperatureMinK, lim.TemperatureMaxK = l.TemperatureMinK, l.TemperatureMaxK
+		lim.TemperatureMinK, lim.TemperatureMaxK, lim.TemperatureTimeConstantS = l.TemperatureMinK, l.TemperatureMaxK, l.TemperatureTimeConstantS
 		if k, err := inst.TemperatureK(ctx); err == nil {
 			st.TemperatureK = &k
 		} else {

@@ -759,20 +759,19 @@ func MoveTime(dist, v, a float64) time.Duration {
 // Preview estimates the cost of the sweep, starting from the instruments'
 // current settings (start; nil fields: unknown, counted from the first
 // setting). The fixed settings are commanded first, then the points; each
-// temperature setpoint change waits for the sample's stability, which takes
-// at least TempHold (counted) plus the cryostat's approach to the setpoint
-// (not known here, so not counted: Preview.temperature_changes says how many
-// such waits the estimate leaves out).
+// temperature setpoint change waits for the sample's stability: the
+// approach to the setpoint (approach, when the thermometer's time constant
+// and the previous setpoint are known) and then TempHold.
 func (p *Sweep) Preview(start Target) *glissv1.Preview {
 	pv := &glissv1.Preview{Points: p.Points}
 	for _, a := range p.Axes {
 		pv.AxisCounts = append(pv.AxisCounts, uint32(len(a.Values)))
 	}
-	cur := start
-	total := p.advance(&cur, p.Fixed, pv)
+	st := previewState{cur: start}
+	total := p.advance(&st, p.Fixed, pv)
 	for seq := uint64(0); seq < p.Points; seq++ {
 		_, _, t := p.At(seq)
-		total += p.advance(&cur, t, pv) + p.Settle + p.Gate
+		total += p.advance(&st, t, pv) + p.Settle + p.Gate
 		if seq > 200_000 {
 			// Long scans: extrapolate rather than walk every point.
 			f := float64(p.Points) / float64(seq+1)
@@ -787,13 +786,40 @@ func (p *Sweep) Preview(start Target) *glissv1.Preview {
 	return pv
 }
 
-// advance moves the estimate's instruments from cur to t: it adds t's
+// approach is how long the sample takes to come within the stability
+// tolerance of a new setpoint to from temperature from (nil: not known),
+// for a first-order approach with the thermometer's time constant τ:
+// τ·ln(|Δ| / tolerance), 0 for a step within the tolerance, at most the
+// stability timeout. known is false when τ or the start is not known.
+func (p *Sweep) approach(from *float64, to float64) (d time.Duration, known bool) {
+	tau := p.limits.therm.TemperatureTimeConstantS
+	if from == nil || !(tau > 0) {
+		return 0, false
+	}
+	step := math.Abs(to - *from)
+	if step <= p.TempToleranceK {
+		return 0, true
+	}
+	return min(time.Duration(tau*math.Log(step/p.TempToleranceK)*float64(time.Second)), p.TempTimeout), true
+}
+
+// previewState is where the estimate's instruments are: cur, and the
+// temperature setpoint the run has commanded (nil before its first: the
+// runner commands every instrument at its first point, so the first
+// setpoint always waits for stability, even one the sample is already at).
+type previewState struct {
+	cur  Target
+	setK *float64
+}
+
+// advance moves the estimate's instruments from st to t: it adds t's
 // travel to pv and returns how long the settings take, the slowest of the
 // instruments (they are set in parallel). A setting with no known start
 // (nil in cur) takes no counted travel.
-func (p *Sweep) advance(cur *Target, t Target, pv *glissv1.Preview) time.Duration {
+func (p *Sweep) advance(st *previewState, t Target, pv *glissv1.Preview) time.Duration {
 	var move time.Duration
 	l := p.limits
+	cur := &st.cur
 	if t.StageMM != nil {
 		if cur.StageMM != nil {
 			d := *t.StageMM - *cur.StageMM
@@ -817,11 +843,15 @@ func (p *Sweep) advance(cur *Target, t Target, pv *glissv1.Preview) time.Duratio
 		cur.DetuningMeV = t.DetuningMeV
 	}
 	if t.TemperatureK != nil {
-		if cur.TemperatureK == nil || *cur.TemperatureK != *t.TemperatureK {
+		if st.setK == nil || *st.setK != *t.TemperatureK {
 			pv.TemperatureChanges++
-			move = max(move, p.TempHold)
+			d, known := p.approach(cur.TemperatureK, *t.TemperatureK)
+			if !known {
+				pv.TemperatureApproachUnknown = true
+			}
+			move = max(move, d+p.TempHold)
 		}
-		cur.TemperatureK = t.TemperatureK
+		st.setK, cur.TemperatureK = t.TemperatureK, t.TemperatureK
 	}
 	// The GDD and the power ride on the stage and the attenuator.
 	if t.GDDPS2 != nil {

@@ -118,12 +118,18 @@ func TestPreview(t *testing.T) {
 	}
 }
 
-// The preview of a temperature series counts each setpoint change with its
-// stability hold, and the move to a fixed setting from where the stage is.
+// The preview of a temperature series counts each setpoint change with the
+// sample's first-order approach (τ·ln(|ΔT|/tolerance), τ the thermometer's
+// time constant: the simulated cryostat's 60 s) and its stability hold, and
+// the move to a fixed setting from where the stage is.
 func TestPreviewTemperatureAndFixed(t *testing.T) {
 	b := simBench(t)
-	hold := 20.0
-	spec := &glissv1.ScanSpec{GateMs: 100, TemperatureHoldS: &hold, Axes: []*glissv1.Axis{
+	tau := b.ByRole(drivers.RoleThermometer).Limits.TemperatureTimeConstantS
+	if tau != 60 {
+		t.Fatalf("simulated thermometer's time constant %v s, want the demo cryostat's 60 s", tau)
+	}
+	hold, tol := 20.0, 0.05
+	spec := &glissv1.ScanSpec{GateMs: 100, TemperatureHoldS: &hold, TemperatureToleranceK: &tol, Axes: []*glissv1.Axis{
 		{Kind: glissv1.AxisKind_AXIS_KIND_TEMPERATURE_K, Values: &glissv1.Axis_List{List: &glissv1.ValueList{Values: []float64{1.5, 4, 8, 20}}}},
 		rng(glissv1.AxisKind_AXIS_KIND_ANGLE_DEG, 10, 30, 3),
 	}, Fixed: []*glissv1.Setpoint{{Kind: glissv1.AxisKind_AXIS_KIND_STAGE_MM, Value: 700}}}
@@ -132,22 +138,43 @@ func TestPreviewTemperatureAndFixed(t *testing.T) {
 		t.Fatal(err)
 	}
 	stage, ang := 600.0, 10.0
+	// The sample temperature before the scan unknown: the first approach
+	// cannot be estimated.
 	pv := p.Preview(Target{StageMM: &stage, AngleDeg: &ang})
-	if pv.TemperatureChanges != 4 {
-		t.Errorf("%d temperature changes from an unknown setpoint, want 4", pv.TemperatureChanges)
-	}
-	// 4 holds of 20 s, 12 gates of 0.1 s, and more for the moves.
-	if pv.EstimatedDurationS < 4*hold+12*0.1 {
-		t.Errorf("estimate %.1f s, want ≥ %.1f s (4 holds and 12 gates)", pv.EstimatedDurationS, 4*hold+12*0.1)
+	if pv.TemperatureChanges != 4 || !pv.TemperatureApproachUnknown {
+		t.Errorf("from an unknown temperature: %d changes, approach unknown %v; want 4, true", pv.TemperatureChanges, pv.TemperatureApproachUnknown)
 	}
 	if pv.StageTravelMm != 100 {
 		t.Errorf("stage travel %v mm, want the 100 mm to the fixed 700 mm", pv.StageTravelMm)
 	}
-	// Starting at the first setpoint: one wait fewer, 20 s less.
-	k := 1.5
+	// From 4.2 K: approaches 4.2→1.5, 1.5→4, 4→8, 8→20 K, each τ·ln(|ΔT|/tol),
+	// and four holds (the first setpoint waits too).
+	k := 4.2
 	pv2 := p.Preview(Target{StageMM: &stage, AngleDeg: &ang, TemperatureK: &k})
-	if pv2.TemperatureChanges != 3 || math.Abs(pv.EstimatedDurationS-pv2.EstimatedDurationS-hold) > 1e-9 {
-		t.Errorf("from 1.5 K: %d changes, %.3f s (from unknown: %.3f s)", pv2.TemperatureChanges, pv2.EstimatedDurationS, pv.EstimatedDurationS)
+	var wantWaits float64
+	prev := k
+	for _, to := range []float64{1.5, 4, 8, 20} {
+		wantWaits += tau*math.Log(math.Abs(to-prev)/tol) + hold
+		prev = to
+	}
+	if pv2.TemperatureChanges != 4 || pv2.TemperatureApproachUnknown {
+		t.Errorf("from 4.2 K: %d changes, approach unknown %v; want 4, false", pv2.TemperatureChanges, pv2.TemperatureApproachUnknown)
+	}
+	// The same points at one angle, with and without the temperatures: the
+	// difference is the waits alone.
+	at := func(temps bool) float64 {
+		axes := []*glissv1.Axis{{Kind: glissv1.AxisKind_AXIS_KIND_ANGLE_DEG, Values: &glissv1.Axis_List{List: &glissv1.ValueList{Values: []float64{10, 10, 10, 10}}}}}
+		if temps {
+			axes = []*glissv1.Axis{spec.Axes[0], {Kind: glissv1.AxisKind_AXIS_KIND_ANGLE_DEG, Values: &glissv1.Axis_List{List: &glissv1.ValueList{Values: []float64{10}}}}}
+		}
+		q, err := New(&glissv1.ScanSpec{GateMs: 100, TemperatureHoldS: &hold, TemperatureToleranceK: &tol, Axes: axes, Fixed: spec.Fixed}, b)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return q.Preview(Target{StageMM: &stage, AngleDeg: &ang, TemperatureK: &k}).EstimatedDurationS
+	}
+	if got := at(true) - at(false); math.Abs(got-wantWaits) > 1e-6*wantWaits {
+		t.Errorf("temperature waits add %.3f s to the estimate, want %.3f s (τ ln(ΔT/tol) + hold per setpoint)", got, wantWaits)
 	}
 }
 

@@ -70,8 +70,8 @@ func counterLimits() drivers.Limits {
 func limitsFor(r drivers.Role) drivers.Limits {
 	switch r {
 	case drivers.RoleThermometer:
-		lo, hi := cryostat.Demo().MinK, cryostat.Demo().MaxK
-		return drivers.Limits{TemperatureMinK: lo, TemperatureMaxK: hi}
+		d := cryostat.Demo()
+		return drivers.Limits{TemperatureMinK: d.MinK, TemperatureMaxK: d.MaxK, TemperatureTimeConstantS: d.TimeConstant.Seconds()}
 	case drivers.RoleStage:
 		return stageLimits()
 	case drivers.RoleAttenuator:

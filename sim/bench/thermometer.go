@@ -84,7 +84,7 @@ func newCryostat(o cryostat.Options, seed uint64, speed float64, instant bool, s
 
 func thermometerLimits(c *cryostat.Cryostat) drivers.Limits {
 	lo, hi := c.RangeK()
-	return drivers.Limits{TemperatureMinK: lo, TemperatureMaxK: hi}
+	return drivers.Limits{TemperatureMinK: lo, TemperatureMaxK: hi, TemperatureTimeConstantS: c.Options().TimeConstant.Seconds()}
 }
 
 // Thermometer is the simulated cryostat's temperature controller

@@ -46,7 +46,7 @@ instruments:
 		case drivers.RolePowerMeter:
 			fmt.Fprintf(&b, "    limits: {max_power_uw: %g}\n", l.PowerMaxUW)
 		case drivers.RoleThermometer:
-			fmt.Fprintf(&b, "    limits: {min_k: %g, max_k: %g}\n", l.TemperatureMinK, l.TemperatureMaxK)
+			fmt.Fprintf(&b, "    limits: {min_k: %g, max_k: %g, time_constant_s: %g}\n", l.TemperatureMinK, l.TemperatureMaxK, l.TemperatureTimeConstantS/speedOf(s))
 		case drivers.RoleCounter:
 			var rates []string
 			for _, ch := range sortedKeys(l.CountRateMaxHz) {

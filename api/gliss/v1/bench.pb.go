@@ -120,8 +120,11 @@ type Limits struct {
 	// Thermometer: setpoint range, K.
 	TemperatureMinK float64 `protobuf:"fixed64,15,opt,name=temperature_min_k,json=temperatureMinK,proto3" json:"temperature_min_k,omitempty"`
 	TemperatureMaxK float64 `protobuf:"fixed64,16,opt,name=temperature_max_k,json=temperatureMaxK,proto3" json:"temperature_max_k,omitempty"`
-	unknownFields   protoimpl.UnknownFields
-	sizeCache       protoimpl.SizeCache
+	// Thermometer: time constant of the sample's first-order approach to a new
+	// setpoint, s (instrument time; 0: not known). Previews use it.
+	TemperatureTimeConstantS float64 `protobuf:"fixed64,17,opt,name=temperature_time_constant_s,json=temperatureTimeConstantS,proto3" json:"temperature_time_constant_s,omitempty"`
+	unknownFields            protoimpl.UnknownFields
+	sizeCache                protoimpl.SizeCache
 }
 
 func (x *Limits) Reset() {
@@ -262,6 +265,13 @@ func (x *Limits) GetTemperatureMinK() float64 {
 func (x *Limits) GetTemperatureMaxK() float64 {
 	if x != nil {
 		return x.TemperatureMaxK
+	}
+	return 0
+}
+
+func (x *Limits) GetTemperatureTimeConstantS() float64 {
+	if x != nil {
+		return x.TemperatureTimeConstantS
 	}
 	return 0
 }
@@ -838,7 +848,7 @@ var File_gliss_v1_bench_proto protoreflect.FileDescriptor
 
 const file_gliss_v1_bench_proto_rawDesc = "" +
 	"\n" +
-	"\x14gliss/v1/bench.proto\x12\bgliss.v1\"\xa1\x05\n" +
+	"\x14gliss/v1/bench.proto\x12\bgliss.v1\"\xe0\x05\n" +
 	"\x06Limits\x12 \n" +
 	"\fstage_min_mm\x18\x01 \x01(\x01R\n" +
 	"stageMinMm\x12 \n" +
@@ -860,7 +870,8 @@ const file_gliss_v1_bench_proto_rawDesc = "" +
 	"\x10detuning_min_mev\x18\r \x01(\x01R\x0edetuningMinMev\x12(\n" +
 	"\x10detuning_max_mev\x18\x0e \x01(\x01R\x0edetuningMaxMev\x12*\n" +
 	"\x11temperature_min_k\x18\x0f \x01(\x01R\x0ftemperatureMinK\x12*\n" +
-	"\x11temperature_max_k\x18\x10 \x01(\x01R\x0ftemperatureMaxK\"?\n" +
+	"\x11temperature_max_k\x18\x10 \x01(\x01R\x0ftemperatureMaxK\x12=\n" +
+	"\x1btemperature_time_constant_s\x18\x11 \x01(\x01R\x18temperatureTimeConstantS\"?\n" +
 	"\fChannelLimit\x12\x18\n" +
 	"\achannel\x18\x01 \x01(\tR\achannel\x12\x15\n" +
 	"\x06max_hz\x18\x02 \x01(\x01R\x05maxHz\"\x9d\x03\n" +

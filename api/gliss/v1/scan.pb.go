@@ -616,8 +616,9 @@ type Preview struct {
 	// Planned number of points.
 	Points uint64 `protobuf:"varint,1,opt,name=points,proto3" json:"points,omitempty"`
 	// Estimated duration from the instruments' speeds, settle and gate times, s (real time).
-	// Each temperature setpoint change counts its stability hold time
-	// (temperature_hold_s), not the cryostat's approach to the setpoint.
+	// Each temperature setpoint change counts the sample's approach to the
+	// setpoint (first order, with the thermometer's time constant, from the
+	// temperature before) and then the stability hold (temperature_hold_s).
 	EstimatedDurationS float64 `protobuf:"fixed64,2,opt,name=estimated_duration_s,json=estimatedDurationS,proto3" json:"estimated_duration_s,omitempty"`
 	// Total stage travel, mm.
 	StageTravelMm float64 `protobuf:"fixed64,3,opt,name=stage_travel_mm,json=stageTravelMm,proto3" json:"stage_travel_mm,omitempty"`
@@ -625,12 +626,14 @@ type Preview struct {
 	RotationDeg float64 `protobuf:"fixed64,4,opt,name=rotation_deg,json=rotationDeg,proto3" json:"rotation_deg,omitempty"`
 	// Number of values of each axis, slowest first.
 	AxisCounts []uint32 `protobuf:"varint,5,rep,packed,name=axis_counts,json=axisCounts,proto3" json:"axis_counts,omitempty"`
-	// Number of temperature setpoint changes, each followed by a stability
-	// wait; the estimate counts only its hold time, so add the cryostat's
-	// approach time (minutes per kelvin step on most cryostats) to it.
+	// Number of temperature setpoint changes, each followed by a stability wait.
 	TemperatureChanges uint32 `protobuf:"varint,6,opt,name=temperature_changes,json=temperatureChanges,proto3" json:"temperature_changes,omitempty"`
-	unknownFields      protoimpl.UnknownFields
-	sizeCache          protoimpl.SizeCache
+	// True when the estimate leaves out the approach to some setpoint: the
+	// thermometer's time constant (bench file: time_constant_s) or the sample
+	// temperature before it is not known.
+	TemperatureApproachUnknown bool `protobuf:"varint,7,opt,name=temperature_approach_unknown,json=temperatureApproachUnknown,proto3" json:"temperature_approach_unknown,omitempty"`
+	unknownFields              protoimpl.UnknownFields
+	sizeCache                  protoimpl.SizeCache
 }
 
 func (x *Preview) Reset() {
@@ -703,6 +706,13 @@ func (x *Preview) GetTemperatureChanges() uint32 {
 		return x.TemperatureChanges
 	}
 	return 0
+}
+
+func (x *Preview) GetTemperatureApproachUnknown() bool {
+	if x != nil {
+		return x.TemperatureApproachUnknown
+	}
+	return false
 }
 
 // Transition is one recorded change of a scan's state.
@@ -1889,7 +1899,7 @@ const file_gliss_v1_scan_proto_rawDesc = "" +
 	" \x01(\x01H\x02R\x13temperatureTimeoutS\x88\x01\x01B\x1a\n" +
 	"\x18_temperature_tolerance_kB\x15\n" +
 	"\x13_temperature_hold_sB\x18\n" +
-	"\x16_temperature_timeout_s\"\xf0\x01\n" +
+	"\x16_temperature_timeout_s\"\xb2\x02\n" +
 	"\aPreview\x12\x16\n" +
 	"\x06points\x18\x01 \x01(\x04R\x06points\x120\n" +
 	"\x14estimated_duration_s\x18\x02 \x01(\x01R\x12estimatedDurationS\x12&\n" +
@@ -1897,7 +1907,8 @@ const file_gliss_v1_scan_proto_rawDesc = "" +
 	"\frotation_deg\x18\x04 \x01(\x01R\vrotationDeg\x12\x1f\n" +
 	"\vaxis_counts\x18\x05 \x03(\rR\n" +
 	"axisCounts\x12/\n" +
-	"\x13temperature_changes\x18\x06 \x01(\rR\x12temperatureChanges\"\x9e\x01\n" +
+	"\x13temperature_changes\x18\x06 \x01(\rR\x12temperatureChanges\x12@\n" +
+	"\x1ctemperature_approach_unknown\x18\a \x01(\bR\x1atemperatureApproachUnknown\"\x9e\x01\n" +
 	"\n" +
 	"Transition\x12'\n" +
 	"\x04from\x18\x01 \x01(\x0e2\x13.gliss.v1.ScanStateR\x04from\x12#\n" +

@@ -13,7 +13,7 @@ _sym_db = _symbol_database.Default()
 
 
 
-DESCRIPTOR = _descriptor_pool.Default().AddSerializedFile(b'\n\x14gliss/v1/bench.proto\x12\x08gliss.v1\"\xb4\x03\n\x06Limits\x12\x14\n\x0cstage_min_mm\x18\x01 \x01(\x01\x12\x14\n\x0cstage_max_mm\x18\x02 \x01(\x01\x12\x1c\n\x14stage_speed_mm_per_s\x18\x03 \x01(\x01\x12\x1d\n\x15stage_accel_mm_per_s2\x18\x04 \x01(\x01\x12\x13\n\x0bgdd_min_ps2\x18\x05 \x01(\x01\x12\x13\n\x0bgdd_max_ps2\x18\x06 \x01(\x01\x12\x15\n\rangle_min_deg\x18\x07 \x01(\x01\x12\x15\n\rangle_max_deg\x18\x08 \x01(\x01\x12 \n\x18rotation_speed_deg_per_s\x18\t \x01(\x01\x12\x14\n\x0cpower_min_uw\x18\n \x01(\x01\x12\x14\n\x0cpower_max_uw\x18\x0b \x01(\x01\x12\x31\n\x11\x63ount_rate_max_hz\x18\x0c \x03(\x0b\x32\x16.gliss.v1.ChannelLimit\x12\x18\n\x10\x64\x65tuning_min_mev\x18\r \x01(\x01\x12\x18\n\x10\x64\x65tuning_max_mev\x18\x0e \x01(\x01\x12\x19\n\x11temperature_min_k\x18\x0f \x01(\x01\x12\x19\n\x11temperature_max_k\x18\x10 \x01(\x01\"/\n\x0c\x43hannelLimit\x12\x0f\n\x07\x63hannel\x18\x01 \x01(\t\x12\x0e\n\x06max_hz\x18\x02 \x01(\x01\"\xc3\x02\n\x0fInstrumentState\x12\x15\n\x08stage_mm\x18\x01 \x01(\x01H\x00\x88\x01\x01\x12\x14\n\x07gdd_ps2\x18\x02 \x01(\x01H\x01\x88\x01\x01\x12\x16\n\tangle_deg\x18\x03 \x01(\x01H\x02\x88\x01\x01\x12\x15\n\x08power_uw\x18\x04 \x01(\x01H\x03\x88\x01\x01\x12\x1e\n\x11measured_power_uw\x18\x05 \x01(\x01H\x04\x88\x01\x01\x12\x19\n\x0c\x64\x65tuning_mev\x18\x06 \x01(\x01H\x05\x88\x01\x01\x12\x1a\n\rtemperature_k\x18\x07 \x01(\x01H\x06\x88\x01\x01\x12\x10\n\x08\x63hannels\x18\x08 \x03(\tB\x0b\n\t_stage_mmB\n\n\x08_gdd_ps2B\x0c\n\n_angle_degB\x0b\n\t_power_uwB\x14\n\x12_measured_power_uwB\x0f\n\r_detuning_mevB\x10\n\x0e_temperature_k\"\xcd\x01\n\nInstrument\x12\x0c\n\x04name\x18\x01 \x01(\t\x12\x1c\n\x04role\x18\x02 \x01(\x0e\x32\x0e.gliss.v1.Role\x12\x0e\n\x06\x64river\x18\x03 \x01(\t\x12\x11\n\tconnected\x18\x04 \x01(\x08\x12\x10\n\x08identity\x18\x05 \x01(\t\x12 \n\x06limits\x18\x06 \x01(\x0b\x32\x10.gliss.v1.Limits\x12(\n\x05state\x18\x07 \x01(\x0b\x32\x19.gliss.v1.InstrumentState\x12\x12\n\nlast_error\x18\x08 \x01(\t\"\x18\n\x16ListInstrumentsRequest\"S\n\x17ListInstrumentsResponse\x12\r\n\x05\x62\x65nch\x18\x01 \x01(\t\x12)\n\x0binstruments\x18\x02 \x03(\x0b\x32\x14.gliss.v1.Instrument\"$\n\x14GetInstrumentRequest\x12\x0c\n\x04name\x18\x01 \x01(\t\"\xb8\x01\n\x14SetInstrumentRequest\x12\x0c\n\x04name\x18\x01 \x01(\t\x12\x12\n\x08stage_mm\x18\x02 \x01(\x01H\x00\x12\x11\n\x07gdd_ps2\x18\x03 \x01(\x01H\x00\x12\x13\n\tangle_deg\x18\x04 \x01(\x01H\x00\x12\x12\n\x08power_uw\x18\x05 \x01(\x01H\x00\x12\x16\n\x0c\x64\x65tuning_mev\x18\x06 \x01(\x01H\x00\x12 \n\x16temperature_setpoint_k\x18\x07 \x01(\x01H\x00\x42\x08\n\x06target*\x8e\x01\n\x04Role\x12\x14\n\x10ROLE_UNSPECIFIED\x10\x00\x12\x0e\n\nROLE_STAGE\x10\x01\x12\x13\n\x0fROLE_ATTENUATOR\x10\x02\x12\x13\n\x0fROLE_POWERMETER\x10\x03\x12\x10\n\x0cROLE_COUNTER\x10\x04\x12\x0e\n\nROLE_LASER\x10\x05\x12\x14\n\x10ROLE_THERMOMETER\x10\x06\x32\xf4\x01\n\x0c\x42\x65nchService\x12V\n\x0fListInstruments\x12 .gliss.v1.ListInstrumentsRequest\x1a!.gliss.v1.ListInstrumentsResponse\x12\x45\n\rGetInstrument\x12\x1e.gliss.v1.GetInstrumentRequest\x1a\x14.gliss.v1.Instrument\x12\x45\n\rSetInstrument\x12\x1e.gliss.v1.SetInstrumentRequest\x1a\x14.gliss.v1.InstrumentB1Z/github.com/gliss-lab/gliss/api/gliss/v1;glissv1b\x06proto3')
+DESCRIPTOR = _descriptor_pool.Default().AddSerializedFile(b'\n\x14gliss/v1/bench.proto\x12\x08gliss.v1\"\xd9\x03\n\x06Limits\x12\x14\n\x0cstage_min_mm\x18\x01 \x01(\x01\x12\x14\n\x0cstage_max_mm\x18\x02 \x01(\x01\x12\x1c\n\x14stage_speed_mm_per_s\x18\x03 \x01(\x01\x12\x1d\n\x15stage_accel_mm_per_s2\x18\x04 \x01(\x01\x12\x13\n\x0bgdd_min_ps2\x18\x05 \x01(\x01\x12\x13\n\x0bgdd_max_ps2\x18\x06 \x01(\x01\x12\x15\n\rangle_min_deg\x18\x07 \x01(\x01\x12\x15\n\rangle_max_deg\x18\x08 \x01(\x01\x12 \n\x18rotation_speed_deg_per_s\x18\t \x01(\x01\x12\x14\n\x0cpower_min_uw\x18\n \x01(\x01\x12\x14\n\x0cpower_max_uw\x18\x0b \x01(\x01\x12\x31\n\x11\x63ount_rate_max_hz\x18\x0c \x03(\x0b\x32\x16.gliss.v1.ChannelLimit\x12\x18\n\x10\x64\x65tuning_min_mev\x18\r \x01(\x01\x12\x18\n\x10\x64\x65tuning_max_mev\x18\x0e \x01(\x01\x12\x19\n\x11temperature_min_k\x18\x0f \x01(\x01\x12\x19\n\x11temperature_max_k\x18\x10 \x01(\x01\x12#\n\x1btemperature_time_constant_s\x18\x11 \x01(\x01\"/\n\x0c\x43hannelLimit\x12\x0f\n\x07\x63hannel\x18\x01 \x01(\t\x12\x0e\n\x06max_hz\x18\x02 \x01(\x01\"\xc3\x02\n\x0fInstrumentState\x12\x15\n\x08stage_mm\x18\x01 \x01(\x01H\x00\x88\x01\x01\x12\x14\n\x07gdd_ps2\x18\x02 \x01(\x01H\x01\x88\x01\x01\x12\x16\n\tangle_deg\x18\x03 \x01(\x01H\x02\x88\x01\x01\x12\x15\n\x08power_uw\x18\x04 \x01(\x01H\x03\x88\x01\x01\x12\x1e\n\x11measured_power_uw\x18\x05 \x01(\x01H\x04\x88\x01\x01\x12\x19\n\x0c\x64\x65tuning_mev\x18\x06 \x01(\x01H\x05\x88\x01\x01\x12\x1a\n\rtemperature_k\x18\x07 \x01(\x01H\x06\x88\x01\x01\x12\x10\n\x08\x63hannels\x18\x08 \x03(\tB\x0b\n\t_stage_mmB\n\n\x08_gdd_ps2B\x0c\n\n_angle_degB\x0b\n\t_power_uwB\x14\n\x12_measured_power_uwB\x0f\n\r_detuning_mevB\x10\n\x0e_temperature_k\"\xcd\x01\n\nInstrument\x12\x0c\n\x04name\x18\x01 \x01(\t\x12\x1c\n\x04role\x18\x02 \x01(\x0e\x32\x0e.gliss.v1.Role\x12\x0e\n\x06\x64river\x18\x03 \x01(\t\x12\x11\n\tconnected\x18\x04 \x01(\x08\x12\x10\n\x08identity\x18\x05 \x01(\t\x12 \n\x06limits\x18\x06 \x01(\x0b\x32\x10.gliss.v1.Limits\x12(\n\x05state\x18\x07 \x01(\x0b\x32\x19.gliss.v1.InstrumentState\x12\x12\n\nlast_error\x18\x08 \x01(\t\"\x18\n\x16ListInstrumentsRequest\"S\n\x17ListInstrumentsResponse\x12\r\n\x05\x62\x65nch\x18\x01 \x01(\t\x12)\n\x0binstruments\x18\x02 \x03(\x0b\x32\x14.gliss.v1.Instrument\"$\n\x14GetInstrumentRequest\x12\x0c\n\x04name\x18\x01 \x01(\t\"\xb8\x01\n\x14SetInstrumentRequest\x12\x0c\n\x04name\x18\x01 \x01(\t\x12\x12\n\x08stage_mm\x18\x02 \x01(\x01H\x00\x12\x11\n\x07gdd_ps2\x18\x03 \x01(\x01H\x00\x12\x13\n\tangle_deg\x18\x04 \x01(\x01H\x00\x12\x12\n\x08power_uw\x18\x05 \x01(\x01H\x00\x12\x16\n\x0c\x64\x65tuning_mev\x18\x06 \x01(\x01H\x00\x12 \n\x16temperature_setpoint_k\x18\x07 \x01(\x01H\x00\x42\x08\n\x06target*\x8e\x01\n\x04Role\x12\x14\n\x10ROLE_UNSPECIFIED\x10\x00\x12\x0e\n\nROLE_STAGE\x10\x01\x12\x13\n\x0fROLE_ATTENUATOR\x10\x02\x12\x13\n\x0fROLE_POWERMETER\x10\x03\x12\x10\n\x0cROLE_COUNTER\x10\x04\x12\x0e\n\nROLE_LASER\x10\x05\x12\x14\n\x10ROLE_THERMOMETER\x10\x06\x32\xf4\x01\n\x0c\x42\x65nchService\x12V\n\x0fListInstruments\x12 .gliss.v1.ListInstrumentsRequest\x1a!.gliss.v1.ListInstrumentsResponse\x12\x45\n\rGetInstrument\x12\x1e.gliss.v1.GetInstrumentRequest\x1a\x14.gliss.v1.Instrument\x12\x45\n\rSetInstrument\x12\x1e.gliss.v1.SetInstrumentRequest\x1a\x14.gliss.v1.InstrumentB1Z/github.com/gliss-lab/gliss/api/gliss/v1;glissv1b\x06proto3')
 
 _builder.BuildMessageAndEnumDescriptors(DESCRIPTOR, globals())
 _builder.BuildTopDescriptorsAndMessages(DESCRIPTOR, 'gliss.v1.bench_pb2', globals())
@@ -21,24 +21,24 @@ if _descriptor._USE_C_DESCRIPTORS == False:
 
   DESCRIPTOR._options = None
   DESCRIPTOR._serialized_options = b'Z/github.com/gliss-lab/gliss/api/gliss/v1;glissv1'
-  _ROLE._serialized_start=1393
-  _ROLE._serialized_end=1535
+  _ROLE._serialized_start=1430
+  _ROLE._serialized_end=1572
   _LIMITS._serialized_start=35
-  _LIMITS._serialized_end=471
-  _CHANNELLIMIT._serialized_start=473
-  _CHANNELLIMIT._serialized_end=520
-  _INSTRUMENTSTATE._serialized_start=523
-  _INSTRUMENTSTATE._serialized_end=846
-  _INSTRUMENT._serialized_start=849
-  _INSTRUMENT._serialized_end=1054
-  _LISTINSTRUMENTSREQUEST._serialized_start=1056
-  _LISTINSTRUMENTSREQUEST._serialized_end=1080
-  _LISTINSTRUMENTSRESPONSE._serialized_start=1082
-  _LISTINSTRUMENTSRESPONSE._serialized_end=1165
-  _GETINSTRUMENTREQUEST._serialized_start=1167
-  _GETINSTRUMENTREQUEST._serialized_end=1203
-  _SETINSTRUMENTREQUEST._serialized_start=1206
-  _SETINSTRUMENTREQUEST._serialized_end=1390
-  _BENCHSERVICE._serialized_start=1538
-  _BENCHSERVICE._serialized_end=1782
+  _LIMITS._serialized_end=508
+  _CHANNELLIMIT._serialized_start=510
+  _CHANNELLIMIT._serialized_end=557
+  _INSTRUMENTSTATE._serialized_start=560
+  _INSTRUMENTSTATE._serialized_end=883
+  _INSTRUMENT._serialized_start=886
+  _INSTRUMENT._serialized_end=1091
+  _LISTINSTRUMENTSREQUEST._serialized_start=1093
+  _LISTINSTRUMENTSREQUEST._serialized_end=1117
+  _LISTINSTRUMENTSRESPONSE._serialized_start=1119
+  _LISTINSTRUMENTSRESPONSE._serialized_end=1202
+  _GETINSTRUMENTREQUEST._serialized_start=1204
+  _GETINSTRUMENTREQUEST._serialized_end=1240
+  _SETINSTRUMENTREQUEST._serialized_start=1243
+  _SETINSTRUMENTREQUEST._serialized_end=1427
+  _BENCHSERVICE._serialized_start=1575
+  _BENCHSERVICE._serialized_end=1819
 # @@protoc_insertion_point(module_scope)

@@ -15,7 +15,7 @@ from google.protobuf import timestamp_pb2 as google_dot_protobuf_dot_timestamp__
 from gliss.v1 import calibration_pb2 as gliss_dot_v1_dot_calibration__pb2
 
 
-DESCRIPTOR = _descriptor_pool.Default().AddSerializedFile(b'\n\x13gliss/v1/scan.proto\x12\x08gliss.v1\x1a\x1fgoogle/protobuf/timestamp.proto\x1a\x1agliss/v1/calibration.proto\"0\n\x05Range\x12\x0c\n\x04\x66rom\x18\x01 \x01(\x01\x12\n\n\x02to\x18\x02 \x01(\x01\x12\r\n\x05\x63ount\x18\x03 \x01(\r\"\x1b\n\tValueList\x12\x0e\n\x06values\x18\x01 \x03(\x01\"\xa2\x01\n\x04\x41xis\x12 \n\x04kind\x18\x01 \x01(\x0e\x32\x12.gliss.v1.AxisKind\x12 \n\x05range\x18\x02 \x01(\x0b\x32\x0f.gliss.v1.RangeH\x00\x12#\n\x04list\x18\x03 \x01(\x0b\x32\x13.gliss.v1.ValueListH\x00\x12\'\n\x07spacing\x18\x04 \x01(\x0e\x32\x16.gliss.v1.PowerSpacingB\x08\n\x06values\";\n\x08Setpoint\x12 \n\x04kind\x18\x01 \x01(\x0e\x32\x12.gliss.v1.AxisKind\x12\r\n\x05value\x18\x02 \x01(\x01\"\xd3\x02\n\x08ScanSpec\x12\x0c\n\x04name\x18\x01 \x01(\t\x12\x1c\n\x04\x61xes\x18\x02 \x03(\x0b\x32\x0e.gliss.v1.Axis\x12\r\n\x05snake\x18\x03 \x01(\x08\x12\x0f\n\x07gate_ms\x18\x04 \x01(\x01\x12\x11\n\tsettle_ms\x18\x05 \x01(\x01\x12!\n\x05\x66ixed\x18\x06 \x03(\x0b\x32\x12.gliss.v1.Setpoint\x12\r\n\x05notes\x18\x07 \x01(\t\x12$\n\x17temperature_tolerance_k\x18\x08 \x01(\x01H\x00\x88\x01\x01\x12\x1f\n\x12temperature_hold_s\x18\t \x01(\x01H\x01\x88\x01\x01\x12\"\n\x15temperature_timeout_s\x18\n \x01(\x01H\x02\x88\x01\x01\x42\x1a\n\x18_temperature_tolerance_kB\x15\n\x13_temperature_hold_sB\x18\n\x16_temperature_timeout_s\"\x98\x01\n\x07Preview\x12\x0e\n\x06points\x18\x01 \x01(\x04\x12\x1c\n\x14\x65stimated_duration_s\x18\x02 \x01(\x01\x12\x17\n\x0fstage_travel_mm\x18\x03 \x01(\x01\x12\x14\n\x0crotation_deg\x18\x04 \x01(\x01\x12\x13\n\x0b\x61xis_counts\x18\x05 \x03(\r\x12\x1b\n\x13temperature_changes\x18\x06 \x01(\r\"\x88\x01\n\nTransition\x12!\n\x04\x66rom\x18\x01 \x01(\x0e\x32\x13.gliss.v1.ScanState\x12\x1f\n\x02to\x18\x02 \x01(\x0e\x32\x13.gliss.v1.ScanState\x12&\n\x02\x61t\x18\x03 \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12\x0e\n\x06reason\x18\x04 \x01(\t\"\xd7\x03\n\x04Scan\x12\n\n\x02id\x18\x01 \x01(\t\x12 \n\x04spec\x18\x02 \x01(\x0b\x32\x12.gliss.v1.ScanSpec\x12\"\n\x05state\x18\x03 \x01(\x0e\x32\x13.gliss.v1.ScanState\x12\"\n\x07preview\x18\x04 \x01(\x0b\x32\x11.gliss.v1.Preview\x12\x15\n\rpoints_stored\x18\x05 \x01(\x04\x12.\n\ncreated_at\x18\x06 \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12.\n\nstarted_at\x18\x07 \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12/\n\x0b\x66inished_at\x18\x08 \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12)\n\x0btransitions\x18\t \x03(\x0b\x32\x14.gliss.v1.Transition\x12\x0e\n\x06reason\x18\n \x01(\t\x12\r\n\x05\x62\x65nch\x18\x0b \x01(\t\x12\x10\n\x08\x63hannels\x18\x0c \x03(\t\x12\x11\n\treplay_of\x18\r \x01(\t\x12\x10\n\x08sim_seed\x18\x0e \x01(\x04\x12\x30\n\x0b\x63\x61libration\x18\x0f \x01(\x0b\x32\x1b.gliss.v1.CalibrationRecord\"\xf5\x01\n\tCommanded\x12\x15\n\x08stage_mm\x18\x01 \x01(\x01H\x00\x88\x01\x01\x12\x14\n\x07gdd_ps2\x18\x02 \x01(\x01H\x01\x88\x01\x01\x12\x16\n\tangle_deg\x18\x03 \x01(\x01H\x02\x88\x01\x01\x12\x15\n\x08power_uw\x18\x04 \x01(\x01H\x03\x88\x01\x01\x12\x19\n\x0c\x64\x65tuning_mev\x18\x05 \x01(\x01H\x04\x88\x01\x01\x12\x1a\n\rtemperature_k\x18\x06 \x01(\x01H\x05\x88\x01\x01\x42\x0b\n\t_stage_mmB\n\n\x08_gdd_ps2B\x0c\n\n_angle_degB\x0b\n\t_power_uwB\x0f\n\r_detuning_mevB\x10\n\x0e_temperature_k\"\xd2\x02\n\x05Point\x12\x0f\n\x07scan_id\x18\x01 \x01(\t\x12\x0b\n\x03seq\x18\x02 \x01(\x04\x12\r\n\x05index\x18\x03 \x03(\r\x12\x0e\n\x06values\x18\x04 \x03(\x01\x12&\n\tcommanded\x18\x05 \x01(\x0b\x32\x13.gliss.v1.Commanded\x12\x1e\n\x11measured_power_uw\x18\x06 \x01(\x01H\x00\x88\x01\x01\x12\x0e\n\x06\x63ounts\x18\x07 \x03(\x04\x12\x0f\n\x07gate_ms\x18\x08 \x01(\x01\x12.\n\nstarted_at\x18\t \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12/\n\x0b\x66inished_at\x18\n \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12\x1a\n\rtemperature_k\x18\x0b \x01(\x01H\x01\x88\x01\x01\x42\x14\n\x12_measured_power_uwB\x10\n\x0e_temperature_k\"Q\n\x07LogLine\x12&\n\x02\x61t\x18\x01 \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12\r\n\x05level\x18\x02 \x01(\t\x12\x0f\n\x07message\x18\x03 \x01(\t\"x\n\tScanEvent\x12\x1e\n\x04scan\x18\x01 \x01(\x0b\x32\x0e.gliss.v1.ScanH\x00\x12 \n\x05point\x18\x02 \x01(\x0b\x32\x0f.gliss.v1.PointH\x00\x12 \n\x03log\x18\x03 \x01(\x0b\x32\x11.gliss.v1.LogLineH\x00\x42\x07\n\x05\x65vent\"L\n\x11SubmitScanRequest\x12 \n\x04spec\x18\x01 \x01(\x0b\x32\x12.gliss.v1.ScanSpec\x12\x15\n\rvalidate_only\x18\x02 \x01(\x08\"2\n\x12SubmitScanResponse\x12\x1c\n\x04scan\x18\x01 \x01(\x0b\x32\x0e.gliss.v1.Scan\"\x1c\n\x0eGetScanRequest\x12\n\n\x02id\x18\x01 \x01(\t\"u\n\x10ListScansRequest\x12\x11\n\tpage_size\x18\x01 \x01(\r\x12\x12\n\npage_token\x18\x02 \x01(\t\x12#\n\x06states\x18\x03 \x03(\x0e\x32\x13.gliss.v1.ScanState\x12\x15\n\rname_contains\x18\x04 \x01(\t\"K\n\x11ListScansResponse\x12\x1d\n\x05scans\x18\x01 \x03(\x0b\x32\x0e.gliss.v1.Scan\x12\x17\n\x0fnext_page_token\x18\x02 \x01(\t\"0\n\x10WatchScanRequest\x12\n\n\x02id\x18\x01 \x01(\t\x12\x10\n\x08\x66rom_seq\x18\x02 \x01(\x04\"@\n\x11ReadPointsRequest\x12\n\n\x02id\x18\x01 \x01(\t\x12\x10\n\x08\x66rom_seq\x18\x02 \x01(\x04\x12\r\n\x05limit\x18\x03 \x01(\x04\".\n\x10PauseScanRequest\x12\n\n\x02id\x18\x01 \x01(\t\x12\x0e\n\x06reason\x18\x02 \x01(\t\"\x1f\n\x11ResumeScanRequest\x12\n\n\x02id\x18\x01 \x01(\t\"/\n\x11\x43\x61ncelScanRequest\x12\n\n\x02id\x18\x01 \x01(\t\x12\x0e\n\x06reason\x18\x02 \x01(\t*\xdb\x01\n\x08\x41xisKind\x12\x19\n\x15\x41XIS_KIND_UNSPECIFIED\x10\x00\x12\x15\n\x11\x41XIS_KIND_GDD_PS2\x10\x01\x12\x16\n\x12\x41XIS_KIND_STAGE_MM\x10\x02\x12\x16\n\x12\x41XIS_KIND_POWER_UW\x10\x03\x12\x17\n\x13\x41XIS_KIND_ANGLE_DEG\x10\x04\x12\x1a\n\x16\x41XIS_KIND_DETUNING_MEV\x10\x05\x12\x1b\n\x17\x41XIS_KIND_TEMPERATURE_K\x10\x06\x12\x1b\n\x17\x41XIS_KIND_PULSE_AREA_PI\x10\x07*c\n\x0cPowerSpacing\x12\x1d\n\x19POWER_SPACING_UNSPECIFIED\x10\x00\x12\x17\n\x13POWER_SPACING_POWER\x10\x01\x12\x1b\n\x17POWER_SPACING_AMPLITUDE\x10\x02*\xd4\x01\n\tScanState\x12\x1a\n\x16SCAN_STATE_UNSPECIFIED\x10\x00\x12\x15\n\x11SCAN_STATE_QUEUED\x10\x01\x12\x16\n\x12SCAN_STATE_RUNNING\x10\x02\x12\x15\n\x11SCAN_STATE_PAUSED\x10\x03\x12\x18\n\x14SCAN_STATE_SUCCEEDED\x10\x04\x12\x15\n\x11SCAN_STATE_FAILED\x10\x05\x12\x18\n\x14SCAN_STATE_CANCELLED\x10\x06\x12\x1a\n\x16SCAN_STATE_INTERRUPTED\x10\x07\x32\xfe\x03\n\x0bScanService\x12G\n\nSubmitScan\x12\x1b.gliss.v1.SubmitScanRequest\x1a\x1c.gliss.v1.SubmitScanResponse\x12\x33\n\x07GetScan\x12\x18.gliss.v1.GetScanRequest\x1a\x0e.gliss.v1.Scan\x12\x44\n\tListScans\x12\x1a.gliss.v1.ListScansRequest\x1a\x1b.gliss.v1.ListScansResponse\x12>\n\tWatchScan\x12\x1a.gliss.v1.WatchScanRequest\x1a\x13.gliss.v1.ScanEvent0\x01\x12<\n\nReadPoints\x12\x1b.gliss.v1.ReadPointsRequest\x1a\x0f.gliss.v1.Point0\x01\x12\x37\n\tPauseScan\x12\x1a.gliss.v1.PauseScanRequest\x1a\x0e.gliss.v1.Scan\x12\x39\n\nResumeScan\x12\x1b.gliss.v1.ResumeScanRequest\x1a\x0e.gliss.v1.Scan\x12\x39\n\nCancelScan\x12\x1b.gliss.v1.CancelScanRequest\x1a\x0e.gliss.v1.ScanB1Z/github.com/gliss-lab/gliss/api/gliss/v1;glissv1b\x06proto3')
+DESCRIPTOR = _descriptor_pool.Default().AddSerializedFile(b'\n\x13gliss/v1/scan.proto\x12\x08gliss.v1\x1a\x1fgoogle/protobuf/timestamp.proto\x1a\x1agliss/v1/calibration.proto\"0\n\x05Range\x12\x0c\n\x04\x66rom\x18\x01 \x01(\x01\x12\n\n\x02to\x18\x02 \x01(\x01\x12\r\n\x05\x63ount\x18\x03 \x01(\r\"\x1b\n\tValueList\x12\x0e\n\x06values\x18\x01 \x03(\x01\"\xa2\x01\n\x04\x41xis\x12 \n\x04kind\x18\x01 \x01(\x0e\x32\x12.gliss.v1.AxisKind\x12 \n\x05range\x18\x02 \x01(\x0b\x32\x0f.gliss.v1.RangeH\x00\x12#\n\x04list\x18\x03 \x01(\x0b\x32\x13.gliss.v1.ValueListH\x00\x12\'\n\x07spacing\x18\x04 \x01(\x0e\x32\x16.gliss.v1.PowerSpacingB\x08\n\x06values\";\n\x08Setpoint\x12 \n\x04kind\x18\x01 \x01(\x0e\x32\x12.gliss.v1.AxisKind\x12\r\n\x05value\x18\x02 \x01(\x01\"\xd3\x02\n\x08ScanSpec\x12\x0c\n\x04name\x18\x01 \x01(\t\x12\x1c\n\x04\x61xes\x18\x02 \x03(\x0b\x32\x0e.gliss.v1.Axis\x12\r\n\x05snake\x18\x03 \x01(\x08\x12\x0f\n\x07gate_ms\x18\x04 \x01(\x01\x12\x11\n\tsettle_ms\x18\x05 \x01(\x01\x12!\n\x05\x66ixed\x18\x06 \x03(\x0b\x32\x12.gliss.v1.Setpoint\x12\r\n\x05notes\x18\x07 \x01(\t\x12$\n\x17temperature_tolerance_k\x18\x08 \x01(\x01H\x00\x88\x01\x01\x12\x1f\n\x12temperature_hold_s\x18\t \x01(\x01H\x01\x88\x01\x01\x12\"\n\x15temperature_timeout_s\x18\n \x01(\x01H\x02\x88\x01\x01\x42\x1a\n\x18_temperature_tolerance_kB\x15\n\x13_temperature_hold_sB\x18\n\x16_temperature_timeout_s\"\xbe\x01\n\x07Preview\x12\x0e\n\x06points\x18\x01 \x01(\x04\x12\x1c\n\x14\x65stimated_duration_s\x18\x02 \x01(\x01\x12\x17\n\x0fstage_travel_mm\x18\x03 \x01(\x01\x12\x14\n\x0crotation_deg\x18\x04 \x01(\x01\x12\x13\n\x0b\x61xis_counts\x18\x05 \x03(\r\x12\x1b\n\x13temperature_changes\x18\x06 \x01(\r\x12$\n\x1ctemperature_approach_unknown\x18\x07 \x01(\x08\"\x88\x01\n\nTransition\x12!\n\x04\x66rom\x18\x01 \x01(\x0e\x32\x13.gliss.v1.ScanState\x12\x1f\n\x02to\x18\x02 \x01(\x0e\x32\x13.gliss.v1.ScanState\x12&\n\x02\x61t\x18\x03 \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12\x0e\n\x06reason\x18\x04 \x01(\t\"\xd7\x03\n\x04Scan\x12\n\n\x02id\x18\x01 \x01(\t\x12 \n\x04spec\x18\x02 \x01(\x0b\x32\x12.gliss.v1.ScanSpec\x12\"\n\x05state\x18\x03 \x01(\x0e\x32\x13.gliss.v1.ScanState\x12\"\n\x07preview\x18\x04 \x01(\x0b\x32\x11.gliss.v1.Preview\x12\x15\n\rpoints_stored\x18\x05 \x01(\x04\x12.\n\ncreated_at\x18\x06 \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12.\n\nstarted_at\x18\x07 \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12/\n\x0b\x66inished_at\x18\x08 \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12)\n\x0btransitions\x18\t \x03(\x0b\x32\x14.gliss.v1.Transition\x12\x0e\n\x06reason\x18\n \x01(\t\x12\r\n\x05\x62\x65nch\x18\x0b \x01(\t\x12\x10\n\x08\x63hannels\x18\x0c \x03(\t\x12\x11\n\treplay_of\x18\r \x01(\t\x12\x10\n\x08sim_seed\x18\x0e \x01(\x04\x12\x30\n\x0b\x63\x61libration\x18\x0f \x01(\x0b\x32\x1b.gliss.v1.CalibrationRecord\"\xf5\x01\n\tCommanded\x12\x15\n\x08stage_mm\x18\x01 \x01(\x01H\x00\x88\x01\x01\x12\x14\n\x07gdd_ps2\x18\x02 \x01(\x01H\x01\x88\x01\x01\x12\x16\n\tangle_deg\x18\x03 \x01(\x01H\x02\x88\x01\x01\x12\x15\n\x08power_uw\x18\x04 \x01(\x01H\x03\x88\x01\x01\x12\x19\n\x0c\x64\x65tuning_mev\x18\x05 \x01(\x01H\x04\x88\x01\x01\x12\x1a\n\rtemperature_k\x18\x06 \x01(\x01H\x05\x88\x01\x01\x42\x0b\n\t_stage_mmB\n\n\x08_gdd_ps2B\x0c\n\n_angle_degB\x0b\n\t_power_uwB\x0f\n\r_detuning_mevB\x10\n\x0e_temperature_k\"\xd2\x02\n\x05Point\x12\x0f\n\x07scan_id\x18\x01 \x01(\t\x12\x0b\n\x03seq\x18\x02 \x01(\x04\x12\r\n\x05index\x18\x03 \x03(\r\x12\x0e\n\x06values\x18\x04 \x03(\x01\x12&\n\tcommanded\x18\x05 \x01(\x0b\x32\x13.gliss.v1.Commanded\x12\x1e\n\x11measured_power_uw\x18\x06 \x01(\x01H\x00\x88\x01\x01\x12\x0e\n\x06\x63ounts\x18\x07 \x03(\x04\x12\x0f\n\x07gate_ms\x18\x08 \x01(\x01\x12.\n\nstarted_at\x18\t \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12/\n\x0b\x66inished_at\x18\n \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12\x1a\n\rtemperature_k\x18\x0b \x01(\x01H\x01\x88\x01\x01\x42\x14\n\x12_measured_power_uwB\x10\n\x0e_temperature_k\"Q\n\x07LogLine\x12&\n\x02\x61t\x18\x01 \x01(\x0b\x32\x1a.google.protobuf.Timestamp\x12\r\n\x05level\x18\x02 \x01(\t\x12\x0f\n\x07message\x18\x03 \x01(\t\"x\n\tScanEvent\x12\x1e\n\x04scan\x18\x01 \x01(\x0b\x32\x0e.gliss.v1.ScanH\x00\x12 \n\x05point\x18\x02 \x01(\x0b\x32\x0f.gliss.v1.PointH\x00\x12 \n\x03log\x18\x03 \x01(\x0b\x32\x11.gliss.v1.LogLineH\x00\x42\x07\n\x05\x65vent\"L\n\x11SubmitScanRequest\x12 \n\x04spec\x18\x01 \x01(\x0b\x32\x12.gliss.v1.ScanSpec\x12\x15\n\rvalidate_only\x18\x02 \x01(\x08\"2\n\x12SubmitScanResponse\x12\x1c\n\x04scan\x18\x01 \x01(\x0b\x32\x0e.gliss.v1.Scan\"\x1c\n\x0eGetScanRequest\x12\n\n\x02id\x18\x01 \x01(\t\"u\n\x10ListScansRequest\x12\x11\n\tpage_size\x18\x01 \x01(\r\x12\x12\n\npage_token\x18\x02 \x01(\t\x12#\n\x06states\x18\x03 \x03(\x0e\x32\x13.gliss.v1.ScanState\x12\x15\n\rname_contains\x18\x04 \x01(\t\"K\n\x11ListScansResponse\x12\x1d\n\x05scans\x18\x01 \x03(\x0b\x32\x0e.gliss.v1.Scan\x12\x17\n\x0fnext_page_token\x18\x02 \x01(\t\"0\n\x10WatchScanRequest\x12\n\n\x02id\x18\x01 \x01(\t\x12\x10\n\x08\x66rom_seq\x18\x02 \x01(\x04\"@\n\x11ReadPointsRequest\x12\n\n\x02id\x18\x01 \x01(\t\x12\x10\n\x08\x66rom_seq\x18\x02 \x01(\x04\x12\r\n\x05limit\x18\x03 \x01(\x04\".\n\x10PauseScanRequest\x12\n\n\x02id\x18\x01 \x01(\t\x12\x0e\n\x06reason\x18\x02 \x01(\t\"\x1f\n\x11ResumeScanRequest\x12\n\n\x02id\x18\x01 \x01(\t\"/\n\x11\x43\x61ncelScanRequest\x12\n\n\x02id\x18\x01 \x01(\t\x12\x0e\n\x06reason\x18\x02 \x01(\t*\xdb\x01\n\x08\x41xisKind\x12\x19\n\x15\x41XIS_KIND_UNSPECIFIED\x10\x00\x12\x15\n\x11\x41XIS_KIND_GDD_PS2\x10\x01\x12\x16\n\x12\x41XIS_KIND_STAGE_MM\x10\x02\x12\x16\n\x12\x41XIS_KIND_POWER_UW\x10\x03\x12\x17\n\x13\x41XIS_KIND_ANGLE_DEG\x10\x04\x12\x1a\n\x16\x41XIS_KIND_DETUNING_MEV\x10\x05\x12\x1b\n\x17\x41XIS_KIND_TEMPERATURE_K\x10\x06\x12\x1b\n\x17\x41XIS_KIND_PULSE_AREA_PI\x10\x07*c\n\x0cPowerSpacing\x12\x1d\n\x19POWER_SPACING_UNSPECIFIED\x10\x00\x12\x17\n\x13POWER_SPACING_POWER\x10\x01\x12\x1b\n\x17POWER_SPACING_AMPLITUDE\x10\x02*\xd4\x01\n\tScanState\x12\x1a\n\x16SCAN_STATE_UNSPECIFIED\x10\x00\x12\x15\n\x11SCAN_STATE_QUEUED\x10\x01\x12\x16\n\x12SCAN_STATE_RUNNING\x10\x02\x12\x15\n\x11SCAN_STATE_PAUSED\x10\x03\x12\x18\n\x14SCAN_STATE_SUCCEEDED\x10\x04\x12\x15\n\x11SCAN_STATE_FAILED\x10\x05\x12\x18\n\x14SCAN_STATE_CANCELLED\x10\x06\x12\x1a\n\x16SCAN_STATE_INTERRUPTED\x10\x07\x32\xfe\x03\n\x0bScanService\x12G\n\nSubmitScan\x12\x1b.gliss.v1.SubmitScanRequest\x1a\x1c.gliss.v1.SubmitScanResponse\x12\x33\n\x07GetScan\x12\x18.gliss.v1.GetScanRequest\x1a\x0e.gliss.v1.Scan\x12\x44\n\tListScans\x12\x1a.gliss.v1.ListScansRequest\x1a\x1b.gliss.v1.ListScansResponse\x12>\n\tWatchScan\x12\x1a.gliss.v1.WatchScanRequest\x1a\x13.gliss.v1.ScanEvent0\x01\x12<\n\nReadPoints\x12\x1b.gliss.v1.ReadPointsRequest\x1a\x0f.gliss.v1.Point0\x01\x12\x37\n\tPauseScan\x12\x1a.gliss.v1.PauseScanRequest\x1a\x0e.gliss.v1.Scan\x12\x39\n\nResumeScan\x12\x1b.gliss.v1.ResumeScanRequest\x1a\x0e.gliss.v1.Scan\x12\x39\n\nCancelScan\x12\x1b.gliss.v1.CancelScanRequest\x1a\x0e.gliss.v1.ScanB1Z/github.com/gliss-lab/gliss/api/gliss/v1;glissv1b\x06proto3')
 
 _builder.BuildMessageAndEnumDescriptors(DESCRIPTOR, globals())
 _builder.BuildTopDescriptorsAndMessages(DESCRIPTOR, 'gliss.v1.scan_pb2', globals())
@@ -23,12 +23,12 @@ if _descriptor._USE_C_DESCRIPTORS == False:
 
   DESCRIPTOR._options = None
   DESCRIPTOR._serialized_options = b'Z/github.com/gliss-lab/gliss/api/gliss/v1;glissv1'
-  _AXISKIND._serialized_start=2906
-  _AXISKIND._serialized_end=3125
-  _POWERSPACING._serialized_start=3127
-  _POWERSPACING._serialized_end=3226
-  _SCANSTATE._serialized_start=3229
-  _SCANSTATE._serialized_end=3441
+  _AXISKIND._serialized_start=2944
+  _AXISKIND._serialized_end=3163
+  _POWERSPACING._serialized_start=3165
+  _POWERSPACING._serialized_end=3264
+  _SCANSTATE._serialized_start=3267
+  _SCANSTATE._serialized_end=3479
   _RANGE._serialized_start=94
   _RANGE._serialized_end=142
   _VALUELIST._serialized_start=144
@@ -40,39 +40,39 @@ if _descriptor._USE_C_DESCRIPTORS == False:
   _SCANSPEC._serialized_start=400
   _SCANSPEC._serialized_end=739
   _PREVIEW._serialized_start=742
-  _PREVIEW._serialized_end=894
-  _TRANSITION._serialized_start=897
-  _TRANSITION._serialized_end=1033
-  _SCAN._serialized_start=1036
-  _SCAN._serialized_end=1507
-  _COMMANDED._serialized_start=1510
-  _COMMANDED._serialized_end=1755
-  _POINT._serialized_start=1758
-  _POINT._serialized_end=2096
-  _LOGLINE._serialized_start=2098
-  _LOGLINE._serialized_end=2179
-  _SCANEVENT._serialized_start=2181
-  _SCANEVENT._serialized_end=2301
-  _SUBMITSCANREQUEST._serialized_start=2303
-  _SUBMITSCANREQUEST._serialized_end=2379
-  _SUBMITSCANRESPONSE._serialized_start=2381
-  _SUBMITSCANRESPONSE._serialized_end=2431
-  _GETSCANREQUEST._serialized_start=2433
-  _GETSCANREQUEST._serialized_end=2461
-  _LISTSCANSREQUEST._serialized_start=2463
-  _LISTSCANSREQUEST._serialized_end=2580
-  _LISTSCANSRESPONSE._serialized_start=2582
-  _LISTSCANSRESPONSE._serialized_end=2657
-  _WATCHSCANREQUEST._serialized_start=2659
-  _WATCHSCANREQUEST._serialized_end=2707
-  _READPOINTSREQUEST._serialized_start=2709
-  _READPOINTSREQUEST._serialized_end=2773
-  _PAUSESCANREQUEST._serialized_start=2775
-  _PAUSESCANREQUEST._serialized_end=2821
-  _RESUMESCANREQUEST._serialized_start=2823
-  _RESUMESCANREQUEST._serialized_end=2854
-  _CANCELSCANREQUEST._serialized_start=2856
-  _CANCELSCANREQUEST._serialized_end=2903
-  _SCANSERVICE._serialized_start=3444
-  _SCANSERVICE._serialized_end=3954
+  _PREVIEW._serialized_end=932
+  _TRANSITION._serialized_start=935
+  _TRANSITION._serialized_end=1071
+  _SCAN._serialized_start=1074
+  _SCAN._serialized_end=1545
+  _COMMANDED._serialized_start=1548
+  _COMMANDED._serialized_end=1793
+  _POINT._serialized_start=1796
+  _POINT._serialized_end=2134
+  _LOGLINE._serialized_start=2136
+  _LOGLINE._serialized_end=2217
+  _SCANEVENT._serialized_start=2219
+  _SCANEVENT._serialized_end=2339
+  _SUBMITSCANREQUEST._serialized_start=2341
+  _SUBMITSCANREQUEST._serialized_end=2417
+  _SUBMITSCANRESPONSE._serialized_start=2419
+  _SUBMITSCANRESPONSE._serialized_end=2469
+  _GETSCANREQUEST._serialized_start=2471
+  _GETSCANREQUEST._serialized_end=2499
+  _LISTSCANSREQUEST._serialized_start=2501
+  _LISTSCANSREQUEST._serialized_end=2618
+  _LISTSCANSRESPONSE._serialized_start=2620
+  _LISTSCANSRESPONSE._serialized_end=2695
+  _WATCHSCANREQUEST._serialized_start=2697
+  _WATCHSCANREQUEST._serialized_end=2745
+  _READPOINTSREQUEST._serialized_start=2747
+  _READPOINTSREQUEST._serialized_end=2811
+  _PAUSESCANREQUEST._serialized_start=2813
+  _PAUSESCANREQUEST._serialized_end=2859
+  _RESUMESCANREQUEST._serialized_start=2861
+  _RESUMESCANREQUEST._serialized_end=2892
+  _CANCELSCANREQUEST._serialized_start=2894
+  _CANCELSCANREQUEST._serialized_end=2941
+  _SCANSERVICE._serialized_start=3482
+  _SCANSERVICE._serialized_end=3992
 # @@protoc_insertion_point(module_scope)
