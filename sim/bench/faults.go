@@ -168,6 +168,9 @@ func (b *base) takeFault(isMove bool) (Fault, bool) {
 // ErrUnavailable, for an error reply it returns ErrReply. For a stuck move it
 // returns the fault for the move to act on.
 func (b *base) fault(ctx context.Context, op string, isMove bool) (*Fault, error) {
+	if b.st.nFaults.Load() == 0 {
+		return nil, nil // nothing armed: the common case, without copying a Fault
+	}
 	f, ok := b.takeFault(isMove)
 	if !ok {
 		return nil, nil

@@ -29,6 +29,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/gliss-lab/gliss/drivers"
@@ -160,10 +161,15 @@ type Cryostat struct {
 	mu        sync.Mutex
 	setpointK float64
 	fromK     float64 // sample temperature at the last setpoint change
-	changedS  float64 // instrument time of the last setpoint change, s
-	rng       *rand.Rand
-	closed    bool
-	faults    []error // queued failures, returned by the next calls
+	// steadyBits: the sample temperature's float64 bits while it does not
+	// depend on time (at the setpoint since the last change, no
+	// oscillation), else steadyNone. Written under mu, read without it on
+	// every gate of the simulated counter.
+	steadyBits atomic.Uint64
+	changedS   float64 // instrument time of the last setpoint change, s
+	rng        *rand.Rand
+	closed     bool
+	faults     []error // queued failures, returned by the next calls
 }
 
 // New opens a simulated cryostat.
@@ -172,13 +178,31 @@ func New(o Options) (*Cryostat, error) {
 	if err := o.validate(); err != nil {
 		return nil, err
 	}
-	return &Cryostat{
+	c := &Cryostat{
 		o:         o,
 		origin:    o.Clock.Now(),
 		setpointK: o.InitialK,
 		fromK:     o.InitialK,
 		rng:       rand.New(rand.NewPCG(o.Seed, 0x63727973746174)),
-	}, nil
+	}
+	c.updateSteadyLocked()
+	return c, nil
+}
+
+// steadyNone marks a sample temperature that changes with time (a NaN's
+// bits: no temperature has them).
+const steadyNone = 0x7ff8_0000_0000_0001
+
+// updateSteadyLocked records whether the sample temperature is now
+// independent of time: then it is the setpoint exactly, as
+// sampleAtLocked computes it (the approach term is 0 × a factor ≤ 1 on a
+// clock that does not run backwards, and there is no oscillation).
+func (c *Cryostat) updateSteadyLocked() {
+	if c.fromK == c.setpointK && c.o.OscillationK == 0 {
+		c.steadyBits.Store(math.Float64bits(c.setpointK))
+	} else {
+		c.steadyBits.Store(steadyNone)
+	}
 }
 
 var _ drivers.Thermometer = (*Cryostat)(nil)
@@ -274,6 +298,9 @@ func (c *Cryostat) TemperatureK(ctx context.Context) (float64, error) {
 // SampleK is the true, noise-free sample temperature now: what the lattice
 // of the simulated dot is at, for its phonons. It takes no instrument time.
 func (c *Cryostat) SampleK() float64 {
+	if b := c.steadyBits.Load(); b != steadyNone {
+		return math.Float64frombits(b)
+	}
 	c.mu.Lock()
 	defer c.mu.Unlock()
 	return c.sampleAtLocked(c.nowS())
@@ -294,6 +321,7 @@ func (c *Cryostat) SetSetpointK(ctx context.Context, k float64) error {
 	c.fromK = c.smoothAtLocked(s)
 	c.changedS = s
 	c.setpointK = k
+	c.updateSteadyLocked()
 	return nil
 }
 

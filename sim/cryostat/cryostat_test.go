@@ -311,3 +311,24 @@ func TestOptionsValidation(t *testing.T) {
 		}
 	}
 }
+
+// Before any setpoint change the sample is exactly at its initial
+// temperature at every time (SampleK's lock-free path); with an oscillation
+// it is not, and SampleK follows the clock.
+func TestSampleKSteadyAndOscillating(t *testing.T) {
+	ctx := context.Background()
+	clk := newManual()
+	c := open(t, Options{InitialK: 4.2, NoiseK: -1, QueryTime: -1, Clock: clk})
+	for range 3 {
+		if got := c.SampleK(); got != 4.2 {
+			t.Fatalf("at rest: SampleK %v K, want 4.2 exactly", got)
+		}
+		clk.Sleep(ctx, 17*time.Second)
+	}
+	clk2 := newManual()
+	o := open(t, Options{InitialK: 4.2, NoiseK: -1, QueryTime: -1, Clock: clk2, OscillationK: 0.02, OscillationPeriod: 100 * time.Second})
+	clk2.Sleep(ctx, 25*time.Second) // a quarter period: the oscillation at its peak
+	if got, want := o.SampleK(), 4.2+0.02; math.Abs(got-want) > 1e-12 {
+		t.Errorf("oscillating, a quarter period in: SampleK %.12f K, want %.12f K", got, want)
+	}
+}
