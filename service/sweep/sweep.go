@@ -793,14 +793,17 @@ func (p *Sweep) Preview(start Target) *glissv1.Preview {
 // stability timeout. known is false when τ or the start is not known.
 func (p *Sweep) approach(from *float64, to float64) (d time.Duration, known bool) {
 	tau := p.limits.therm.TemperatureTimeConstantS
-	if from == nil || !(tau > 0) {
+	if from == nil || !(tau > 0) || !(p.TempToleranceK > 0) {
 		return 0, false
 	}
 	step := math.Abs(to - *from)
 	if step <= p.TempToleranceK {
 		return 0, true
 	}
-	return min(time.Duration(tau*math.Log(step/p.TempToleranceK)*float64(time.Second)), p.TempTimeout), true
+	if s := tau * math.Log(step/p.TempToleranceK); s < p.TempTimeout.Seconds() {
+		return time.Duration(s * float64(time.Second)), true
+	}
+	return p.TempTimeout, true
 }
 
 // previewState is where the estimate's instruments are: cur, and the
