@@ -142,12 +142,10 @@ func ClearFault(b *drivers.Bench, instrument string) error {
 }
 
 // takeFault consumes one call of the instrument's armed fault, if any applies
-// to this call (a stuck fault applies only to moves).
+// to this call (a stuck fault applies only to moves). fault calls it only
+// when some fault is armed.
 func (b *base) takeFault(isMove bool) (Fault, bool) {
 	st := b.st
-	if st.nFaults.Load() == 0 {
-		return Fault{}, false // nothing armed: the common case, without the lock
-	}
 	st.mu.Lock()
 	defer st.mu.Unlock()
 	f, ok := st.faults[b.name]
@@ -169,7 +167,7 @@ func (b *base) takeFault(isMove bool) (Fault, bool) {
 // returns the fault for the move to act on.
 func (b *base) fault(ctx context.Context, op string, isMove bool) (*Fault, error) {
 	if b.st.nFaults.Load() == 0 {
-		return nil, nil // nothing armed: the common case, without copying a Fault
+		return nil, nil // nothing armed: the common case, without the lock
 	}
 	f, ok := b.takeFault(isMove)
 	if !ok {
