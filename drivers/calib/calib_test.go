@@ -116,7 +116,8 @@ func TestMalusInverse(t *testing.T) {
 }
 
 // A power has four angles per half turn of the plate (Malus's law,
-// cos² of 2(θ − θ0)); the one within the attenuator's limits is used.
+// P = Pmin + (Pmax − Pmin)·cos²(2(θ − θ0)); Hecht, Optics, 5th ed., §8.2);
+// the one within the attenuator's limits is used.
 func TestMalusAngleWithin(t *testing.T) {
 	m := Malus{PMinUW: 0.05, PMaxUW: 200, Theta0Deg: 40}
 	cases := []struct {

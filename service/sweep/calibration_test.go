@@ -87,7 +87,8 @@ func TestNDWheelLaw(t *testing.T) {
 
 // TestPowerOnTheOtherBranch: a half-wave plate whose maximum sits near the
 // end of its allowed angles gives a power on the other side of the maximum
-// (Malus's law is symmetric about θ0) instead of refusing it.
+// (Malus's law is symmetric about θ0; Hecht, Optics, 5th ed., §8.2) instead
+// of refusing it.
 func TestPowerOnTheOtherBranch(t *testing.T) {
 	b := simBench(t)
 	l := b.ByRole(drivers.RoleAttenuator).Limits

@@ -121,9 +121,10 @@ func TestPreview(t *testing.T) {
 // The preview of a temperature series counts each setpoint change with the
 // sample's first-order approach and its stability hold, and the move to a
 // fixed setting from where the stage is. The approach is elementary:
-// T(t) = T1 + (T0 − T1)·exp(−t/τ) comes within ±tol of T1 after
-// τ·ln(|T0 − T1|/tol), τ the thermometer's time constant (the simulated
-// cryostat's 60 s, sim/cryostat.Demo).
+// T(t) = T1 + (T0 − T1)·exp(−t/τ) (the step response of a first-order
+// system: Ogata, Modern Control Engineering, 5th ed., §5-2) comes within
+// ±tol of T1 after τ·ln(|T0 − T1|/tol), τ the thermometer's time constant
+// (the simulated cryostat's 60 s, sim/cryostat.Demo).
 func TestPreviewTemperatureAndFixed(t *testing.T) {
 	b := simBench(t)
 	tau := b.ByRole(drivers.RoleThermometer).Limits.TemperatureTimeConstantS
