@@ -75,6 +75,15 @@ type Counter interface {
 	Count(ctx context.Context, gate time.Duration) ([]uint64, error)
 }
 
+// CounterInto is a Counter that can put its counts in the caller's memory:
+// CountInto is Count with the counts appended to dst[:0] (allocating only
+// when dst is too short). The engine uses it, when a counter has it, to
+// keep a point's counts in the point's own allocation.
+type CounterInto interface {
+	Counter
+	CountInto(ctx context.Context, gate time.Duration, dst []uint64) ([]uint64, error)
+}
+
 // Laser is the excitation laser, tunable around the two-photon resonance.
 type Laser interface {
 	Instrument

@@ -110,6 +110,7 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 	}
 	// One callback for every point of the run: the store hands the point back.
 	durable := func(p *glissv1.Point, err error) { e.pointDurable(r, p, err) }
+	ceilings := e.countCeilings(r)
 	for seq := start; seq < r.sweep.Points; {
 		// Control requests take effect between points.
 		stop, held := e.between(ctx, r, &last)
@@ -139,7 +140,7 @@ func (e *Engine) runScan(ctx context.Context, r *run) {
 			continue
 		}
 		seq++
-		if msg := e.interlockAfter(ctx, r, p); msg != "" {
+		if msg := e.interlockAfter(ctx, r, p, ceilings); msg != "" {
 			r.mu.Lock()
 			r.pauseSet, r.pauseReq = true, msg
 			r.attention.Store(true)
@@ -643,7 +644,13 @@ func (e *Engine) measure(pctx context.Context, r *run, parts *pointParts, seq ui
 		p.TemperatureK = &parts.temperatureK
 	}
 	c := e.bench.Counter()
-	counts, err := c.Count(pctx, r.sweep.Gate)
+	var counts []uint64
+	var err error
+	if ci, ok := c.(drivers.CounterInto); ok {
+		counts, err = ci.CountInto(pctx, r.sweep.Gate, parts.counts[:0])
+	} else {
+		counts, err = c.Count(pctx, r.sweep.Gate)
+	}
 	if err != nil {
 		return nil, instFail(e.bench, drivers.RoleCounter, "counter", fmt.Sprintf("gate %v", r.sweep.Gate), err)
 	}
@@ -663,6 +670,7 @@ type pointParts struct {
 	commanded             glissv1.Commanded
 	stamps                [2]timestamppb.Timestamp
 	powerUW, temperatureK float64
+	counts                [2]uint64 // x and xx; a counter with more channels allocates
 }
 
 // stamp sets stamps[i] to t (as timestamppb.New does) and returns it.
@@ -672,20 +680,35 @@ func (pp *pointParts) stamp(i int, t time.Time) *timestamppb.Timestamp {
 	return ts
 }
 
+// countCeilings are the counter's count-rate ceilings (Hz) in the order of
+// the scan's channels (recorded at submit), 0 where a channel has none;
+// nil when none has one. Looked up once a run, not once a point.
+func (e *Engine) countCeilings(r *run) []float64 {
+	ce := e.bench.ByRole(drivers.RoleCounter)
+	if ce == nil || len(ce.Limits.CountRateMaxHz) == 0 {
+		return nil
+	}
+	out := make([]float64, len(r.rec.Channels))
+	for i, ch := range r.rec.Channels {
+		if c := ce.Limits.CountRateMaxHz[ch]; c > 0 {
+			out[i] = c
+		}
+	}
+	return out
+}
+
 // interlockAfter checks a measured point against the count-rate ceilings
-// and the maximum power. On a violation it sets the attenuator to its
-// minimum at once and returns the pause reason. Software limits only: never
-// a substitute for the hardware interlocks of the lab.
-func (e *Engine) interlockAfter(ctx context.Context, r *run, p *glissv1.Point) string {
+// (countCeilings) and the maximum power. On a violation it sets the
+// attenuator to its minimum at once and returns the pause reason. Software
+// limits only: never a substitute for the hardware interlocks of the lab.
+func (e *Engine) interlockAfter(ctx context.Context, r *run, p *glissv1.Point, ceilings []float64) string {
 	var reason string
-	if ce := e.bench.ByRole(drivers.RoleCounter); ce != nil && len(ce.Limits.CountRateMaxHz) > 0 {
-		gateS := p.GateMs / 1000
-		for i, ch := range r.rec.Channels { // the counter's channels, recorded at submit
-			if ceil, ok := ce.Limits.CountRateMaxHz[ch]; ok && ceil > 0 && i < len(p.Counts) {
-				if rate := float64(p.Counts[i]) / gateS; rate > ceil {
-					reason = fmt.Sprintf("interlock: count rate %.4g /s on channel %s above its ceiling %.4g /s at point %d", rate, ch, ceil, p.Seq)
-					break
-				}
+	gateS := p.GateMs / 1000
+	for i, ceil := range ceilings {
+		if ceil > 0 && i < len(p.Counts) {
+			if rate := float64(p.Counts[i]) / gateS; rate > ceil {
+				reason = fmt.Sprintf("interlock: count rate %.4g /s on channel %s above its ceiling %.4g /s at point %d", rate, r.rec.Channels[i], ceil, p.Seq)
+				break
 			}
 		}
 	}

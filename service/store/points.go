@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"sync"
 
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
 	bolt "go.etcd.io/bbolt"
@@ -34,11 +35,12 @@ const readChunk = 512
 // When AppendPoint returns an error (invalid point, ctx ended, ErrClosed),
 // done is never called.
 //
-// The point is encoded by the writer, just before the transaction that
-// holds it (off the caller's goroutine): p must not be modified after
-// AppendPoint returns nil (reading it is fine). A point that cannot be
-// encoded gets its error through done, like ErrSequence: nothing of it is
-// stored and the points queued behind it get ErrSequence.
+// The point is encoded here, on the caller's goroutine, into the store's
+// arena (see pointArena): when points come fast the writer, which commits
+// and fsyncs, is the busier of the two, so it should have nothing to do but
+// write. The record stored is p as it is when AppendPoint is called. A point
+// that cannot be encoded is refused here (ErrInvalid); nothing of it is
+// queued.
 func (s *Store) AppendPoint(ctx context.Context, p *glissv1.Point, done Done) error {
 	if p == nil {
 		return fmt.Errorf("store: append point: nil point: %w", ErrInvalid)
@@ -46,10 +48,54 @@ func (s *Store) AppendPoint(ctx context.Context, p *glissv1.Point, done Done) er
 	if err := checkScanID(p.GetScanId()); err != nil {
 		return fmt.Errorf("store: append point %d: %w", p.GetSeq(), err)
 	}
-	if err := s.submit(ctx, op{kind: opPoint, scanID: p.GetScanId(), seq: p.GetSeq(), point: p, done: done}); err != nil {
+	data, err := s.arena.encode(p)
+	if err != nil {
+		return fmt.Errorf("store: scan %q: point %d: encode: %v: %w", p.GetScanId(), p.GetSeq(), err, ErrInvalid)
+	}
+	if err := s.submit(ctx, op{kind: opPoint, scanID: p.GetScanId(), seq: p.GetSeq(), data: data, point: p, done: done}); err != nil {
 		return fmt.Errorf("store: scan %q: append point %d: %w", p.GetScanId(), p.GetSeq(), err)
 	}
 	return nil
+}
+
+// pointArena holds encoded points on their way to the writer. Producers
+// append to the current chunk under mu and take a sub-slice; a chunk that
+// fills up is dropped (left to the garbage collector once the last op that
+// refers into it is committed), never reused, so a queued or committing
+// point's bytes are never overwritten. bbolt keeps a value slice only until
+// its transaction ends, and only reads it. One allocation per chunk, not
+// per point.
+type pointArena struct {
+	mu  sync.Mutex
+	buf []byte
+}
+
+const (
+	arenaChunkBytes = 64 << 10
+	// arenaRoomBytes: a chunk with less room left is replaced before
+	// encoding (a point is ~150–300 bytes; a bigger one still fits, by
+	// append moving it to a new array).
+	arenaRoomBytes = 2 << 10
+)
+
+// encode appends p's protobuf encoding (the bytes proto.Marshal writes,
+// deterministic) to the arena and returns them.
+func (a *pointArena) encode(p *glissv1.Point) ([]byte, error) {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if cap(a.buf)-len(a.buf) < arenaRoomBytes {
+		a.buf = make([]byte, 0, arenaChunkBytes)
+	}
+	start := len(a.buf)
+	buf, ok := appendPointWire(a.buf, p)
+	if !ok {
+		var err error
+		if buf, err = marshalOpts.MarshalAppend(a.buf, p); err != nil {
+			return nil, err // a.buf unchanged: at most its spare capacity was written
+		}
+	}
+	a.buf = buf
+	return buf[start:len(buf):len(buf)], nil
 }
 
 // PointCount is the number of durable points of scan id (points are stored

@@ -115,7 +115,8 @@ type Store struct {
 	errSinceSync error
 	keyBuf       []byte
 	opErrs       []error
-	pointBuf     []byte // encoded points of the batch being committed
+
+	arena pointArena // encoded points, written by AppendPoint's callers
 
 	commits        atomic.Uint64 // write transactions committed
 	committedItems atomic.Uint64 // items in them
@@ -242,15 +243,14 @@ const (
 	opCheck
 )
 
-// op is one queued request. Points carry their message, which the writer
-// encodes (into its own reused buffer) just before the transaction: the
-// encoding runs on the writer's goroutine, beside the producer's, not on it.
+// op is one queued request. Points come encoded (data, in the store's
+// arena) with their message, which goes back to their done callback.
 type op struct {
 	kind   opKind
 	scanID string
 	seq    uint64
 	data   []byte
-	point  *glissv1.Point // opPoint: encoded into data by encodePoints
+	point  *glissv1.Point // opPoint: the point data encodes
 	scan   *glissv1.Scan
 	done   Done       // points
 	reply  chan error // everything else; buffered (1)
@@ -384,7 +384,6 @@ func (s *Store) commit(batch []op) {
 			writes++
 		}
 	}
-	s.encodePoints(batch, errs)
 	var err error
 	if writes > 0 {
 		if need := 8 * len(batch); cap(s.keyBuf) < need {
@@ -397,9 +396,6 @@ func (s *Store) commit(batch []op) {
 				return err
 			}
 			for i := range batch {
-				if errs[i] != nil {
-					continue // not encodable: nothing of it is written
-				}
 				opErr, fatal := w.apply(&batch[i], i)
 				if fatal != nil {
 					return fatal
@@ -444,35 +440,6 @@ func (s *Store) commit(batch []op) {
 		}
 	}
 	clear(errs)
-}
-
-// encodePoints encodes the batch's points into s.pointBuf, one after the
-// other; a point that cannot be encoded gets its error in errs. bbolt keeps
-// the value slices until the transaction ends, so the buffer is reused only
-// by the next commit.
-func (s *Store) encodePoints(batch []op, errs []error) {
-	buf := s.pointBuf[:0]
-	for i := range batch {
-		o := &batch[i]
-		if o.kind != opPoint || o.point == nil {
-			continue
-		}
-		start := len(buf)
-		var err error
-		var ok bool
-		if buf, ok = appendPointWire(buf, o.point); !ok {
-			buf, err = marshalOpts.MarshalAppend(buf[:start], o.point)
-		}
-		if err != nil {
-			buf = buf[:start]
-			errs[i] = fmt.Errorf("scan %q: point %d: encode: %w", o.scanID, o.seq, err)
-			continue
-		}
-		o.data = buf[start:len(buf):len(buf)]
-	}
-	// Earlier points' slices may point into a smaller array that append
-	// left behind; they stay valid (and alive) until the batch is cleared.
-	s.pointBuf = buf
 }
 
 // Sync waits until everything queued before it is durable. It returns the

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"math"
+	"slices"
 	"strings"
 	"sync"
 	"testing"
@@ -659,5 +660,35 @@ func TestSameTargetDoesNotMove(t *testing.T) {
 	p3, _ := bi.Stage().PositionMM(ctx)
 	if p2 != p1 || p3 == p1 {
 		t.Errorf("positions %g, %g (same target), %g (new target)", p1, p2, p3)
+	}
+}
+
+// CountInto gives the numbers Count gives (same seed, same gates) and, with
+// room in dst, keeps them there: no allocation per gate once the yield is
+// cached.
+func TestCountIntoSameAsCount(t *testing.T) {
+	ctx := context.Background()
+	a := newBench(t, Options{Seed: 7, Instant: true, PowerNoiseRel: -1}).Counter()
+	b := newBench(t, Options{Seed: 7, Instant: true, PowerNoiseRel: -1}).Counter().(drivers.CounterInto)
+	var dst [2]uint64
+	for i := range 50 {
+		want, err := a.Count(ctx, 100*time.Millisecond)
+		if err != nil {
+			t.Fatal(err)
+		}
+		got, err := b.CountInto(ctx, 100*time.Millisecond, dst[:0])
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !slices.Equal(got, want) || &got[0] != &dst[0] {
+			t.Fatalf("gate %d: CountInto %v (in dst: %v), Count %v", i, got, &got[0] == &dst[0], want)
+		}
+	}
+	if n := testing.AllocsPerRun(100, func() {
+		if _, err := b.CountInto(ctx, 100*time.Millisecond, dst[:0]); err != nil {
+			t.Fatal(err)
+		}
+	}); n != 0 {
+		t.Errorf("CountInto with room in dst: %v allocations per gate, want 0", n)
 	}
 }

@@ -75,6 +75,12 @@ func (c *Counter) Channels() []string { return []string{"x", "xx"} }
 
 // Count opens the gate for gate and returns the counts of x and xx.
 func (c *Counter) Count(ctx context.Context, gate time.Duration) ([]uint64, error) {
+	return c.CountInto(ctx, gate, nil)
+}
+
+// CountInto is Count with the counts appended to dst[:0]
+// (drivers.CounterInto).
+func (c *Counter) CountInto(ctx context.Context, gate time.Duration, dst []uint64) ([]uint64, error) {
 	op := c.opFor(gate)
 	if err := c.begin(ctx, op); err != nil {
 		return nil, err
@@ -94,7 +100,7 @@ func (c *Counter) Count(ctx context.Context, gate time.Duration) ([]uint64, erro
 	start := st.readStart()
 	sn := st.snap()
 
-	counts, err := c.draw(sn, gate)
+	counts, err := c.draw(sn, gate, dst)
 	if err != nil {
 		return nil, fmt.Errorf("%s %q: %s: %w", c.kind, c.name, op, err)
 	}
@@ -106,8 +112,8 @@ func (c *Counter) Count(ctx context.Context, gate time.Duration) ([]uint64, erro
 
 // draw computes one gate's counts at the optical state sn: the gate's laser
 // noise, then the model's yields, then Poisson counts, all from the
-// counter's own stream in that order.
-func (c *Counter) draw(sn snapshot, gate time.Duration) ([]uint64, error) {
+// counter's own stream in that order. The counts are appended to out[:0].
+func (c *Counter) draw(sn snapshot, gate time.Duration, out []uint64) ([]uint64, error) {
 	t := &c.st.truth
 	c.rngMu.Lock()
 	defer c.rngMu.Unlock()
@@ -123,7 +129,10 @@ func (c *Counter) draw(sn snapshot, gate time.Duration) ([]uint64, error) {
 	if err != nil {
 		return nil, err
 	}
-	return t.chain.Counts(c.rng, y[:], gate, make([]uint64, 0, 2)), nil
+	if cap(out) < len(t.chain.Efficiency) {
+		out = make([]uint64, 0, len(t.chain.Efficiency))
+	}
+	return t.chain.Counts(c.rng, y[:], gate, out), nil
 }
 
 // pointAt is the dot model's point for an optical state, with the laser

@@ -122,7 +122,6 @@ func poissonPTRS(rng *rand.Rand, mu float64) uint64 {
 	a := -0.059 + 0.02483*b
 	invAlpha := 1.1239 + 1.1328/(b-3.4)
 	vr := 0.9277 - 3.6224/(b-2)
-	logMu := math.Log(mu)
 	for {
 		u := rng.Float64() - 0.5
 		v := rng.Float64()
@@ -134,7 +133,7 @@ func poissonPTRS(rng *rand.Rand, mu float64) uint64 {
 		if kf < 0 || (us < 0.013 && v > us) {
 			continue
 		}
-		if math.Log(v*invAlpha/(a/(us*us)+b)) <= logPoissonPMF(kf, mu, logMu) {
+		if math.Log(v*invAlpha/(a/(us*us)+b)) <= logPoissonPMF(kf, mu) {
 			return uint64(kf)
 		}
 	}
@@ -142,11 +141,12 @@ func poissonPTRS(rng *rand.Rand, mu float64) uint64 {
 
 // logPoissonPMF is log(mu^k e^-mu / k!) for integer k ≥ 0, written as
 // k·log(mu/k) + (k − mu) − ½log(2πk) − δ(k) with δ the Stirling remainder,
-// so that it keeps full precision when k and mu are large.
-func logPoissonPMF(k, mu, logMu float64) float64 {
+// so that it keeps full precision when k and mu are large. log(mu) is
+// taken only for small k: most calls (mu ≫ 20) never need it.
+func logPoissonPMF(k, mu float64) float64 {
 	if k < 20 {
 		lg, _ := math.Lgamma(k + 1)
-		return k*logMu - mu - lg
+		return k*math.Log(mu) - mu - lg
 	}
 	d := (mu - k) / k
 	return k*math.Log1p(d) + (k - mu) - 0.5*math.Log(2*math.Pi*k) - stirlingRemainder(k)
