@@ -1,8 +1,10 @@
 package daemon
 
 import (
+	"math"
 	"os"
 	"runtime/debug"
+	"runtime/metrics"
 )
 
 // glissd's garbage-collector policy (ApplyGCPolicy).
@@ -26,7 +28,7 @@ const (
 // GOMEMLIMIT: an operator's choice wins). glissd and the embedded daemon of
 // `gliss demo` call it at start; it changes the whole process, so a program
 // that embeds the daemon for its own purposes decides itself. It returns
-// the settings in force.
+// the settings in force (gcPercent −1: collection off).
 func ApplyGCPolicy() (gcPercent int, memoryLimitBytes int64) {
 	if os.Getenv("GOGC") == "" {
 		debug.SetGCPercent(GCPercent)
@@ -34,7 +36,17 @@ func ApplyGCPolicy() (gcPercent int, memoryLimitBytes int64) {
 	if os.Getenv("GOMEMLIMIT") == "" {
 		debug.SetMemoryLimit(MemoryLimitBytes)
 	}
-	gcPercent = debug.SetGCPercent(-1)
-	debug.SetGCPercent(gcPercent)
-	return gcPercent, debug.SetMemoryLimit(-1)
+	return gcSettings()
+}
+
+// gcSettings reads the collector's settings from runtime/metrics, without
+// changing them.
+func gcSettings() (gcPercent int, memoryLimitBytes int64) {
+	s := []metrics.Sample{{Name: "/gc/gogc:percent"}, {Name: "/gc/gomemlimit:bytes"}}
+	metrics.Read(s)
+	gcPercent = -1 // GOGC=off reads as the largest uint64
+	if pct := s[0].Value.Uint64(); pct <= math.MaxInt32 {
+		gcPercent = int(pct)
+	}
+	return gcPercent, int64(min(s[1].Value.Uint64(), math.MaxInt64))
 }

@@ -26,4 +26,9 @@ func TestApplyGCPolicy(t *testing.T) {
 	if pct, limit := ApplyGCPolicy(); pct != GCPercent || limit != MemoryLimitBytes {
 		t.Fatalf("without: %d %%, %d bytes; want %d %%, %d bytes", pct, limit, GCPercent, MemoryLimitBytes)
 	}
+
+	debug.SetGCPercent(-1)
+	if pct, _ := gcSettings(); pct != -1 {
+		t.Errorf("collection off reads as %d %%, want -1", pct)
+	}
 }
