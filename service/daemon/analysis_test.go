@@ -17,6 +17,7 @@ import (
 	"github.com/gliss-lab/gliss/service/analysis"
 	"github.com/gliss-lab/gliss/service/daemon"
 	simbench "github.com/gliss-lab/gliss/sim/bench"
+	"github.com/gliss-lab/gliss/sim/cryostat"
 	"github.com/gliss-lab/gliss/sim/model"
 	"github.com/gliss-lab/gliss/sim/phonon"
 )
@@ -489,6 +490,42 @@ func TestReplayControl(t *testing.T) {
 	for i := range pb {
 		if !slices.Equal(pa[i].Counts, pb[i].Counts) {
 			t.Fatalf("point %d: replay counts %v, original %v", i, pb[i].Counts, pa[i].Counts)
+		}
+	}
+}
+
+// A scan of real instruments (a bench with no simulator seed, here the
+// simulated bench posing as one, its cryostat at 12 K) is replayed with the
+// sample at the temperature its points recorded, so the model's phonons see
+// the sample's lattice, not the simulator's default 4.2 K.
+func TestReplayAtRecordedTemperature(t *testing.T) {
+	bench, err := simbench.New(simbench.Options{Seed: 9, Instant: true, Cryostat: cryostat.Options{InitialK: 12}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	bench.TimeScale = 1e12
+	bench.SimSeed = 0 // "real instruments"
+	_, c := startDaemon(t, daemon.Config{Bench: bench})
+	ctx, cancel := context.WithTimeout(context.Background(), time.Minute)
+	defer cancel()
+	orig, err := c.Submit(ctx, client.ChirpSpec(client.Range(-10, 10, 5), client.Options{GateMS: 50}))
+	if err != nil {
+		t.Fatal(err)
+	}
+	waitEnd(t, ctx, c, orig.Id)
+	r, err := glissv1.NewAnalysisServiceClient(c.Conn()).ReplayScan(ctx, &glissv1.ReplayScanRequest{Id: orig.Id})
+	if err != nil {
+		t.Fatal(err)
+	}
+	waitEnd(t, ctx, c, r.Scan.Id)
+	pa, pb := points(t, ctx, c, orig.Id), points(t, ctx, c, r.Scan.Id)
+	if len(pa) != 5 || len(pb) != 5 {
+		t.Fatalf("%d and %d points", len(pa), len(pb))
+	}
+	for i := range pb {
+		// reading noise σ 0.01 K (the demo cryostat)
+		if k := pb[i].GetTemperatureK(); math.Abs(k-12) > 0.06 {
+			t.Errorf("replay point %d: sample at %.3f K, the original's was %.3f K", i, k, pa[i].GetTemperatureK())
 		}
 	}
 }

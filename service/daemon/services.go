@@ -5,10 +5,14 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"math"
+	"slices"
 	"sync"
 	"time"
 
 	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
 
 	glissv1 "github.com/gliss-lab/gliss/api/gliss/v1"
 	"github.com/gliss-lab/gliss/drivers"
@@ -17,6 +21,8 @@ import (
 	"github.com/gliss-lab/gliss/service/rpc"
 	"github.com/gliss-lab/gliss/service/store"
 	simbench "github.com/gliss-lab/gliss/sim/bench"
+	"github.com/gliss-lab/gliss/sim/cryostat"
+	"github.com/gliss-lab/gliss/sim/phonon"
 )
 
 // registerServices registers the gRPC services beyond BenchService and
@@ -97,6 +103,13 @@ func (r *replayer) replay(ctx context.Context, orig *glissv1.Scan) (*glissv1.Sca
 	if r.quiet {
 		o.PowerNoiseRel, o.MeterNoiseRel = -1, -1
 	}
+	if k, ok, err := r.sampleTemperatureK(ctx, orig); err != nil {
+		return nil, err
+	} else if ok {
+		// The simulated cryostat's range, widened to hold k if need be.
+		d := cryostat.Demo()
+		o.Cryostat.MinK, o.Cryostat.MaxK, o.Cryostat.InitialK = min(d.MinK, k), max(d.MaxK, k), k
+	}
 	b, err := simbench.New(o)
 	if err != nil {
 		return nil, fmt.Errorf("replay of %s: simulated bench: %w", orig.GetId(), err)
@@ -171,6 +184,65 @@ func (r *replayer) replay(ctx context.Context, orig *glissv1.Scan) (*glissv1.Sca
 	}()
 	r.log.Info("replay queued", "scan", sc.GetId(), "replay_of", orig.GetId(), "seed", orig.GetSimSeed(), "calibration_version", orig.GetCalibration().GetVersion())
 	return sc, nil
+}
+
+// replayTemperatureReadings is how many of the original's first points
+// sampleTemperatureK reads.
+const replayTemperatureReadings = 16
+
+// sampleTemperatureK is the sample temperature a replay's simulated
+// cryostat starts at, when it is not the simulator's own start (ok false).
+// A scan that sets the temperature itself (a temperature axis or a fixed
+// setpoint) is replayed the same way: the replay's engine sets it. A scan
+// of the simulated bench started at the simulator's start temperature, so
+// its replay does too (and gives the same counts bit for bit). A scan of
+// real instruments with a thermometer recorded the sample's temperature:
+// its replay starts at the median of the first readings, to 0.01 K, so the
+// model's phonons see the temperature the sample had; it must be within the
+// phonon model's range, above 0 K (FailedPrecondition otherwise).
+func (r *replayer) sampleTemperatureK(ctx context.Context, orig *glissv1.Scan) (float64, bool, error) {
+	if orig.GetSimSeed() != 0 {
+		return 0, false, nil
+	}
+	for _, a := range orig.GetSpec().GetAxes() {
+		if a.GetKind() == glissv1.AxisKind_AXIS_KIND_TEMPERATURE_K {
+			return 0, false, nil
+		}
+	}
+	for _, f := range orig.GetSpec().GetFixed() {
+		if f.GetKind() == glissv1.AxisKind_AXIS_KIND_TEMPERATURE_K {
+			return 0, false, nil
+		}
+	}
+	var ks []float64
+	errEnough := errors.New("enough readings")
+	err := r.store.ReadPoints(ctx, orig.GetId(), 0, func(p *glissv1.Point) error {
+		if p.TemperatureK != nil {
+			ks = append(ks, p.GetTemperatureK())
+		}
+		if len(ks) == replayTemperatureReadings {
+			return errEnough
+		}
+		return nil
+	})
+	if err != nil && !errors.Is(err, errEnough) {
+		return 0, false, fmt.Errorf("replay of %s: read its sample temperatures: %w", orig.GetId(), err)
+	}
+	if len(ks) == 0 {
+		return 0, false, nil // no thermometer: the simulator's start temperature
+	}
+	slices.Sort(ks)
+	k := ks[len(ks)/2]
+	if len(ks)%2 == 0 {
+		k = (ks[len(ks)/2-1] + k) / 2
+	}
+	k = math.Round(k*100) / 100
+	if !(k > 0 && k <= phonon.MaxTemperatureK) {
+		return 0, false, status.Errorf(codes.FailedPrecondition,
+			"replay of %s: its sample was at %.2f K (median of the first %d readings); the simulator models 0.01–%g K",
+			orig.GetId(), k, len(ks), phonon.MaxTemperatureK)
+	}
+	return k, true, nil
 }
 
 // stop ends every live replay (a running one becomes INTERRUPTED, as on
