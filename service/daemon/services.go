@@ -187,7 +187,7 @@ func (r *replayer) replay(ctx context.Context, orig *glissv1.Scan) (*glissv1.Sca
 }
 
 // replayTemperatureReadings is how many of the original's first points
-// sampleTemperatureK reads.
+// sampleTemperatureK reads (at most).
 const replayTemperatureReadings = 16
 
 // sampleTemperatureK is the sample temperature a replay's simulated
@@ -215,12 +215,14 @@ func (r *replayer) sampleTemperatureK(ctx context.Context, orig *glissv1.Scan) (
 		}
 	}
 	var ks []float64
-	errEnough := errors.New("enough readings")
+	read := 0
+	errEnough := errors.New("enough points")
 	err := r.store.ReadPoints(ctx, orig.GetId(), 0, func(p *glissv1.Point) error {
 		if p.TemperatureK != nil {
 			ks = append(ks, p.GetTemperatureK())
 		}
-		if len(ks) == replayTemperatureReadings {
+		// every point of a bench with a thermometer has a reading
+		if read++; read == replayTemperatureReadings {
 			return errEnough
 		}
 		return nil
