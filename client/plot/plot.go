@@ -90,8 +90,9 @@ func checkAxis(name string, v []float64) error {
 // HeatMap writes a PNG heat map of z over xs × ys with a colour scale on
 // the right. z is flat in C order: z[i*len(ys)+j] is the value at xs[i],
 // ys[j]; NaN cells (points not stored) are grey. Axes may be unevenly
-// spaced (e.g. power spaced in amplitude): each cell reaches half-way to
-// its neighbours.
+// spaced (e.g. power spaced in amplitude) or descending: each cell reaches
+// half-way to its neighbours. The cells are one raster at the figure's
+// resolution (cells.go), so neighbours meet without seams.
 func HeatMap(w io.Writer, xs, ys, z []float64, o Options) error {
 	if err := checkAxis("x", xs); err != nil {
 		return err
@@ -113,9 +114,7 @@ func HeatMap(w io.Writer, xs, ys, z []float64, o Options) error {
 	cm := Dusk()
 	cm.SetMin(lo)
 	cm.SetMax(hi)
-	hm := plotter.NewHeatMap(g, cm.Palette(256))
-	hm.Min, hm.Max = lo, hi
-	hm.NaN = NaNColor
+	width, height, dpi := o.size()
 
 	p := gplot.New()
 	p.Title.Text = o.Title
@@ -123,7 +122,7 @@ func HeatMap(w io.Writer, xs, ys, z []float64, o Options) error {
 	p.Y.Label.Text = o.YLabel
 	p.X.Padding, p.Y.Padding = 0, 0
 	p.X.Tick.Marker, p.Y.Tick.Marker = niceTicks{}, niceTicks{}
-	p.Add(hm)
+	p.Add(cells{g: g, colors: cm.Palette(256).Colors(), lo: lo, hi: hi, nan: NaNColor, dpi: float64(int(dpi))}) // vgimg takes whole dots per inch
 
 	bar := gplot.New()
 	cb := &plotter.ColorBar{ColorMap: cm, Vertical: true}
@@ -133,18 +132,23 @@ func HeatMap(w io.Writer, xs, ys, z []float64, o Options) error {
 	bar.Y.Label.Text = o.ZLabel
 	bar.Y.Tick.Marker = niceTicks{}
 
-	width, height, dpi := o.size()
 	img := vgimg.NewWith(vgimg.UseWH(width, height), vgimg.UseDPI(int(dpi)), vgimg.UseBackgroundColor(color.White))
 	dc := margins(draw.New(img))
-	barW := 2.6 * vg.Centimeter
-	if barW > width/3 {
-		barW = width / 3
+	// The colour bar sits at the right edge, its coloured strip barData
+	// wide and as tall as the map's data area; its axis (label, tick labels,
+	// ticks) takes what it needs to the strip's left, and the map the rest.
+	// (A canvas narrower than the axis would make gonum draw the strip over
+	// its own ticks.)
+	barData := 0.45 * vg.Centimeter
+	side := draw.Crop(dc, dc.Max.X-dc.Min.X-2*vg.Centimeter, -0.35*vg.Centimeter, 0, 0)
+	bd := bar.DataCanvas(side)
+	side.Min.X += (bd.Max.X - bd.Min.X) - barData
+	if min := dc.Min.X + (dc.Max.X-dc.Min.X)*2/3; side.Min.X < min {
+		side.Min.X = min // an axis wider than a third of the figure: squeeze it
 	}
-	main := draw.Crop(dc, 0, -barW, 0, 0)
-	side := draw.Crop(dc, dc.Max.X-dc.Min.X-barW, 0, 0, 0)
-	// Keep the colour bar narrow, and its data area level with the map's.
-	side = draw.Crop(side, 0.25*vg.Centimeter, -0.9*vg.Centimeter, 0, 0)
-	md, bd := p.DataCanvas(main), bar.DataCanvas(side)
+	main := draw.Crop(dc, 0, side.Min.X-dc.Max.X-0.2*vg.Centimeter, 0, 0)
+	md := p.DataCanvas(main)
+	bd = bar.DataCanvas(side)
 	side.Min.Y += md.Min.Y - bd.Min.Y
 	side.Max.Y -= bd.Max.Y - md.Max.Y
 	p.Draw(main)

@@ -1,0 +1,130 @@
+package plot
+
+import (
+	"image"
+	"image/color"
+	"math"
+	"sort"
+
+	gplot "gonum.org/v1/plot"
+	"gonum.org/v1/plot/vg"
+	"gonum.org/v1/plot/vg/draw"
+)
+
+// cells draws a heat map's cells as one raster image at the figure's own
+// resolution, one image pixel for each output pixel. Each cell reaches
+// half-way to its neighbours (the outer cells as far out as in), so uneven
+// and descending axes are drawn as they are. Drawn as one rectangle a cell,
+// anti-aliased edges leave hairline seams of background between
+// neighbouring cells; a raster of whole pixels has none.
+type cells struct {
+	g      grid
+	colors []color.Color // the palette, lowest value first
+	lo, hi float64       // the values of the first and last colour
+	nan    color.Color   // cells without a finite value
+	dpi    float64       // output pixels per inch
+}
+
+// edges returns the n+1 cell edges of the axis values v: half-way between
+// neighbours, and half a neighbour's spacing beyond the outer values (±0.5
+// for a single value).
+func edges(v []float64) []float64 {
+	n := len(v)
+	e := make([]float64, n+1)
+	if n == 1 {
+		e[0], e[1] = v[0]-0.5, v[0]+0.5
+		return e
+	}
+	e[0] = v[0] - (v[1]-v[0])/2
+	for i := 1; i < n; i++ {
+		e[i] = (v[i-1] + v[i]) / 2
+	}
+	e[n] = v[n-1] + (v[n-1]-v[n-2])/2
+	return e
+}
+
+// DataRange implements plot.DataRanger: the outer cell edges.
+func (c cells) DataRange() (xmin, xmax, ymin, ymax float64) {
+	ex, ey := edges(c.g.xs), edges(c.g.ys)
+	xmin, xmax = math.Min(ex[0], ex[len(ex)-1]), math.Max(ex[0], ex[len(ex)-1])
+	ymin, ymax = math.Min(ey[0], ey[len(ey)-1]), math.Max(ey[0], ey[len(ey)-1])
+	return
+}
+
+// color is the colour of a value, as gonum's heat map picks it: the
+// nearest of the palette's evenly spaced colours.
+func (c cells) color(v float64) color.Color {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return c.nan
+	}
+	n := len(c.colors)
+	k := int(math.Round((v - c.lo) / (c.hi - c.lo) * float64(n-1)))
+	return c.colors[min(max(k, 0), n-1)]
+}
+
+// span maps the cell edges of one axis to canvas coordinates and finds,
+// for each of npx pixel centres from lo to hi, the cell it falls in (-1:
+// none).
+func span(e []float64, tr func(float64) vg.Length, lo, hi vg.Length, npx int) []int {
+	type edge struct {
+		at   vg.Length
+		cell int // the cell that begins at this edge in canvas order
+	}
+	n := len(e) - 1
+	pts := make([]edge, len(e))
+	for i, v := range e {
+		pts[i] = edge{at: tr(v)}
+	}
+	// Canvas coordinates run with the axis or against it (descending
+	// values): order the cells by canvas position.
+	asc := pts[n].at >= pts[0].at
+	for i := range pts {
+		if asc {
+			pts[i].cell = i // cell i lies between edges i and i+1
+		} else {
+			pts[i].cell = i - 1 // reversed below: edge i begins cell i-1
+		}
+	}
+	if !asc {
+		for i, j := 0, n; i < j; i, j = i+1, j-1 {
+			pts[i], pts[j] = pts[j], pts[i]
+		}
+	}
+	out := make([]int, npx)
+	step := (hi - lo) / vg.Length(npx)
+	for p := range npx {
+		x := lo + (vg.Length(p)+0.5)*step
+		k := sort.Search(len(pts), func(i int) bool { return pts[i].at > x }) - 1
+		if k < 0 || k >= n {
+			out[p] = -1
+			continue
+		}
+		out[p] = pts[k].cell
+	}
+	return out
+}
+
+// Plot implements plot.Plotter.
+func (c cells) Plot(dc draw.Canvas, p *gplot.Plot) {
+	trX, trY := p.Transforms(&dc)
+	r := dc.Rectangle
+	px := func(l vg.Length) int { return max(1, int(math.Round(l.Dots(c.dpi)))) }
+	w, h := px(r.Max.X-r.Min.X), px(r.Max.Y-r.Min.Y)
+	cols := span(edges(c.g.xs), trX, r.Min.X, r.Max.X, w)
+	rows := span(edges(c.g.ys), trY, r.Min.Y, r.Max.Y, h)
+	img := image.NewNRGBA(image.Rect(0, 0, w, h))
+	ny := len(c.g.ys)
+	for j, row := range rows {
+		if row < 0 {
+			continue
+		}
+		y := h - 1 - j // image rows run down, canvas y up
+		for i, col := range cols {
+			if col < 0 {
+				continue
+			}
+			img.Set(i, y, c.color(c.g.z[col*ny+row]))
+		}
+	}
+	dc.DrawImage(r, img)
+}
