@@ -119,3 +119,15 @@ func TestPowerOnTheOtherBranch(t *testing.T) {
 		}
 	}
 }
+
+// A value of a FROM:TO:N range is named in an error as a person would write
+// it, without the binary rounding of the range arithmetic
+// (0.05 + 7·(300−0.05)/10 = 210.01500000000001 in float64).
+func TestErrorNamesRoundedValue(t *testing.T) {
+	b := simBench(t)
+	spec := &glissv1.ScanSpec{GateMs: 1, Axes: []*glissv1.Axis{rng(glissv1.AxisKind_AXIS_KIND_POWER_UW, 0.05, 300, 11)}}
+	_, err := New(spec, b)
+	if err == nil || !strings.Contains(err.Error(), "power 210.015 µW outside") {
+		t.Errorf("error %v, want it to name power 210.015 µW", err)
+	}
+}

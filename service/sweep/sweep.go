@@ -423,18 +423,18 @@ func (p *Sweep) checkValue(k glissv1.AxisKind, v float64) string {
 		}
 		mm, err := p.cal.Stretcher.PositionMM(v)
 		if err != nil {
-			return fmt.Sprintf("GDD %g ps²: stretcher calibration: %v", v, err)
+			return fmt.Sprintf("GDD %.10g ps²: stretcher calibration: %v", v, err)
 		}
 		if mm < l.stage.StageMinMM || mm > l.stage.StageMaxMM {
 			lo, hi := p.gddRange()
-			return fmt.Sprintf("GDD %g ps² needs the stage at %.3f mm, outside its travel %g–%g mm: allowed GDD %.3f to %.3f ps²", v, mm, l.stage.StageMinMM, l.stage.StageMaxMM, lo, hi)
+			return fmt.Sprintf("GDD %.10g ps² needs the stage at %.3f mm, outside its travel %.10g–%.10g mm: allowed GDD %.3f to %.3f ps²", v, mm, l.stage.StageMinMM, l.stage.StageMaxMM, lo, hi)
 		}
 	case glissv1.AxisKind_AXIS_KIND_STAGE_MM:
 		if !l.hasStage {
 			return "the bench has no stage"
 		}
 		if v < l.stage.StageMinMM || v > l.stage.StageMaxMM {
-			return fmt.Sprintf("stage position %g mm outside the travel %g–%g mm", v, l.stage.StageMinMM, l.stage.StageMaxMM)
+			return fmt.Sprintf("stage position %.10g mm outside the travel %.10g–%.10g mm", v, l.stage.StageMinMM, l.stage.StageMaxMM)
 		}
 	case glissv1.AxisKind_AXIS_KIND_POWER_UW:
 		if !l.hasAtt {
@@ -450,24 +450,24 @@ func (p *Sweep) checkValue(k glissv1.AxisKind, v float64) string {
 		}
 		pw, err := p.cal.PowerUW(v)
 		if err != nil {
-			return fmt.Sprintf("angle %g°: attenuator calibration: %v", v, err)
+			return fmt.Sprintf("angle %.10g°: attenuator calibration: %v", v, err)
 		}
 		if l.att.PowerMaxUW > 0 && pw > l.att.PowerMaxUW {
-			return fmt.Sprintf("angle %g° gives %.4g µW through the attenuator calibration, above the bench's maximum power %g µW", v, pw, l.att.PowerMaxUW)
+			return fmt.Sprintf("angle %.10g° gives %.4g µW through the attenuator calibration, above the bench's maximum power %.10g µW", v, pw, l.att.PowerMaxUW)
 		}
 	case glissv1.AxisKind_AXIS_KIND_DETUNING_MEV:
 		if !l.hasLaser {
 			return "the bench has no tunable laser"
 		}
 		if v < l.laser.DetuningMinMeV || v > l.laser.DetuningMaxMeV {
-			return fmt.Sprintf("detuning %g meV outside the laser's range %g to %g meV", v, l.laser.DetuningMinMeV, l.laser.DetuningMaxMeV)
+			return fmt.Sprintf("detuning %.10g meV outside the laser's range %.10g to %.10g meV", v, l.laser.DetuningMinMeV, l.laser.DetuningMaxMeV)
 		}
 	case glissv1.AxisKind_AXIS_KIND_TEMPERATURE_K:
 		if !l.hasTherm {
 			return "the bench has no thermometer"
 		}
 		if v < l.therm.TemperatureMinK || v > l.therm.TemperatureMaxK {
-			return fmt.Sprintf("temperature %g K outside the thermometer's range %g–%g K", v, l.therm.TemperatureMinK, l.therm.TemperatureMaxK)
+			return fmt.Sprintf("temperature %.10g K outside the thermometer's range %.10g–%.10g K", v, l.therm.TemperatureMinK, l.therm.TemperatureMaxK)
 		}
 	case glissv1.AxisKind_AXIS_KIND_PULSE_AREA_PI:
 		if !l.hasAtt {
@@ -478,12 +478,12 @@ func (p *Sweep) checkValue(k glissv1.AxisKind, v float64) string {
 			return "pulse-area axes need a pulse-area calibration, which this bench does not have yet (gliss calib pulse-area --from-scan ID)"
 		}
 		if v < 0 {
-			return fmt.Sprintf("pulse area %g π: must be ≥ 0", v)
+			return fmt.Sprintf("pulse area %.10g π: must be ≥ 0", v)
 		}
 		pw := pa.PowerUW(v)
 		if msg := p.checkPower(pw); msg != "" {
 			lo, hi := p.areaRange()
-			return fmt.Sprintf("pulse area %g π needs %.4g µW by the pulse-area calibration (%.4g π/√µW): %s; allowed areas %.4g to %.4g π", v, pw, pa.AreaPiPerSqrtUW, msg, lo, hi)
+			return fmt.Sprintf("pulse area %.10g π needs %.4g µW by the pulse-area calibration (%.4g π/√µW): %s; allowed areas %.4g to %.4g π", v, pw, pa.AreaPiPerSqrtUW, msg, lo, hi)
 		}
 	default:
 		return fmt.Sprintf("unknown kind %v", k)
@@ -506,7 +506,7 @@ func (p *Sweep) powerRangeUW() (float64, float64) {
 func (p *Sweep) checkPower(v float64) string {
 	lo, hi := p.powerRangeUW()
 	if v < lo || v > hi {
-		return fmt.Sprintf("power %g µW outside the allowed %g–%g µW (attenuator range and the bench's maximum power)", v, lo, hi)
+		return fmt.Sprintf("power %.10g µW outside the allowed %.10g–%.10g µW (attenuator range and the bench's maximum power)", v, lo, hi)
 	}
 	// angleFor only returns an angle within the attenuator's limits.
 	if _, err := p.angleFor(v); err != nil {
