@@ -143,8 +143,8 @@ func HeatMap(w io.Writer, xs, ys, z []float64, o Options) error {
 	side := draw.Crop(dc, dc.Max.X-dc.Min.X-2*vg.Centimeter, -0.35*vg.Centimeter, 0, 0)
 	bd := bar.DataCanvas(side)
 	side.Min.X += (bd.Max.X - bd.Min.X) - barData
-	if min := dc.Min.X + (dc.Max.X-dc.Min.X)*2/3; side.Min.X < min {
-		side.Min.X = min // an axis wider than a third of the figure: squeeze it
+	if lim := dc.Min.X + (dc.Max.X-dc.Min.X)*2/3; side.Min.X < lim {
+		side.Min.X = lim // an axis wider than a third of the figure: squeeze it
 	}
 	main := draw.Crop(dc, 0, side.Min.X-dc.Max.X-0.2*vg.Centimeter, 0, 0)
 	md := p.DataCanvas(main)
