@@ -25,6 +25,57 @@ type cells struct {
 	dpi    float64       // output pixels per inch
 }
 
+// sortedGrid is the grid of z over xs × ys with each axis in ascending
+// order when it is neither ascending nor descending (a list of values
+// given out of order), so that every cell lies between its neighbours.
+func sortedGrid(xs, ys, z []float64) grid {
+	px, py := order(xs), order(ys)
+	if px == nil && py == nil {
+		return grid{xs: xs, ys: ys, z: z}
+	}
+	if px == nil {
+		px = identity(len(xs))
+	}
+	if py == nil {
+		py = identity(len(ys))
+	}
+	g := grid{xs: make([]float64, len(xs)), ys: make([]float64, len(ys)), z: make([]float64, len(z))}
+	for i, pi := range px {
+		g.xs[i] = xs[pi]
+		for j, pj := range py {
+			g.z[i*len(ys)+j] = z[pi*len(ys)+pj]
+		}
+	}
+	for j, pj := range py {
+		g.ys[j] = ys[pj]
+	}
+	return g
+}
+
+// order is the ascending permutation of v, or nil when v is already
+// ascending or descending.
+func order(v []float64) []int {
+	up, down := true, true
+	for i := 1; i < len(v); i++ {
+		up = up && v[i] >= v[i-1]
+		down = down && v[i] <= v[i-1]
+	}
+	if up || down {
+		return nil
+	}
+	p := identity(len(v))
+	sort.SliceStable(p, func(a, b int) bool { return v[p[a]] < v[p[b]] })
+	return p
+}
+
+func identity(n int) []int {
+	p := make([]int, n)
+	for i := range p {
+		p[i] = i
+	}
+	return p
+}
+
 // edges returns the n+1 cell edges of the axis values v: half-way between
 // neighbours, and half a neighbour's spacing beyond the outer values (±0.5
 // for a single value).

@@ -205,3 +205,36 @@ func TestHeatMapAxisOrder(t *testing.T) {
 		t.Errorf("%d pixels differ between ascending and descending axes", diff)
 	}
 }
+
+// Axis values given out of order (a list such as 4, 0, 9, 1) draw each
+// cell between its neighbours in value: the same image as the sorted map.
+func TestHeatMapUnsortedAxis(t *testing.T) {
+	xs := []float64{0, 1, 4, 9}
+	ys := []float64{0.05, 2, 3}
+	z := make([]float64, len(xs)*len(ys))
+	for i := range xs {
+		for j := range ys {
+			z[i*len(ys)+j] = float64(3*i*i + j)
+		}
+	}
+	perm := []int{2, 0, 3, 1} // xs 4, 0, 9, 1
+	ux := make([]float64, len(xs))
+	uz := make([]float64, len(z))
+	for k, i := range perm {
+		ux[k] = xs[i]
+		copy(uz[k*len(ys):(k+1)*len(ys)], z[i*len(ys):(i+1)*len(ys)])
+	}
+	a, b := render(t, "unsorted_axis", xs, ys, z), render(t, "unsorted_axis", ux, ys, uz)
+	diff := 0
+	bnd := a.Bounds()
+	for y := bnd.Min.Y; y < bnd.Max.Y; y++ {
+		for x := bnd.Min.X; x < bnd.Max.X; x++ {
+			if nrgba(a, x, y) != nrgba(b, x, y) {
+				diff++
+			}
+		}
+	}
+	if diff > 0 {
+		t.Errorf("%d pixels differ between sorted and unsorted x values", diff)
+	}
+}

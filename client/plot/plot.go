@@ -103,7 +103,7 @@ func HeatMap(w io.Writer, xs, ys, z []float64, o Options) error {
 	if len(z) != len(xs)*len(ys) {
 		return fmt.Errorf("plot: %d values for a %d × %d grid (want %d)", len(z), len(xs), len(ys), len(xs)*len(ys))
 	}
-	g := grid{xs: xs, ys: ys, z: z}
+	g := sortedGrid(xs, ys, z)
 	lo, hi, ok := g.minMax()
 	if !ok {
 		return errors.New("plot: no finite value to plot (no point stored yet?)")
