@@ -12,11 +12,12 @@ import (
 )
 
 // cells draws a heat map's cells as one raster image at the figure's own
-// resolution, one image pixel for each output pixel. Each cell reaches
-// half-way to its neighbours (the outer cells as far out as in), so uneven
-// and descending axes are drawn as they are. Drawn as one rectangle a cell,
-// anti-aliased edges leave hairline seams of background between
-// neighbouring cells; a raster of whole pixels has none.
+// resolution, one image pixel for each output pixel. Its grid's axes are
+// ascending (sortedGrid); each cell reaches half-way to its neighbours (the
+// outer cells as far out as in), so uneven axes are drawn as they are.
+// Drawn as one rectangle a cell, anti-aliased edges leave hairline seams
+// of background between neighbouring cells; a raster of whole pixels has
+// none.
 type cells struct {
 	g      grid
 	colors []color.Color // the palette, lowest value first
@@ -25,9 +26,9 @@ type cells struct {
 	dpi    float64       // output pixels per inch
 }
 
-// sortedGrid is the grid of z over xs × ys with each axis in ascending
-// order when it is neither ascending nor descending (a list of values
-// given out of order), so that every cell lies between its neighbours.
+// sortedGrid is the grid of z over xs × ys with both axes in ascending
+// order (axes may be given descending or as a list out of order), so that
+// every cell lies between its neighbours in value.
 func sortedGrid(xs, ys, z []float64) grid {
 	px, py := order(xs), order(ys)
 	if px == nil && py == nil {
@@ -53,14 +54,13 @@ func sortedGrid(xs, ys, z []float64) grid {
 }
 
 // order is the ascending permutation of v, or nil when v is already
-// ascending or descending.
+// ascending.
 func order(v []float64) []int {
-	up, down := true, true
+	up := true
 	for i := 1; i < len(v); i++ {
 		up = up && v[i] >= v[i-1]
-		down = down && v[i] <= v[i-1]
 	}
-	if up || down {
+	if up {
 		return nil
 	}
 	p := identity(len(v))
@@ -97,9 +97,7 @@ func edges(v []float64) []float64 {
 // DataRange implements plot.DataRanger: the outer cell edges.
 func (c cells) DataRange() (xmin, xmax, ymin, ymax float64) {
 	ex, ey := edges(c.g.xs), edges(c.g.ys)
-	xmin, xmax = math.Min(ex[0], ex[len(ex)-1]), math.Max(ex[0], ex[len(ex)-1])
-	ymin, ymax = math.Min(ey[0], ey[len(ey)-1]), math.Max(ey[0], ey[len(ey)-1])
-	return
+	return ex[0], ex[len(ex)-1], ey[0], ey[len(ey)-1]
 }
 
 // color is the colour of a value, as gonum's heat map picks it: the
@@ -113,44 +111,24 @@ func (c cells) color(v float64) color.Color {
 	return c.colors[min(max(k, 0), n-1)]
 }
 
-// span maps the cell edges of one axis to canvas coordinates and finds,
-// for each of npx pixel centres from lo to hi, the cell it falls in (-1:
-// none).
+// span maps the ascending cell edges of one axis to canvas coordinates
+// and finds, for each of npx pixel centres from lo to hi, the cell it
+// falls in (-1: none).
 func span(e []float64, tr func(float64) vg.Length, lo, hi vg.Length, npx int) []int {
-	type edge struct {
-		at   vg.Length
-		cell int // the cell that begins at this edge in canvas order
+	at := make([]vg.Length, len(e))
+	for i, v := range e {
+		at[i] = tr(v)
 	}
 	n := len(e) - 1
-	pts := make([]edge, len(e))
-	for i, v := range e {
-		pts[i] = edge{at: tr(v)}
-	}
-	// Canvas coordinates run with the axis or against it (descending
-	// values): order the cells by canvas position.
-	asc := pts[n].at >= pts[0].at
-	for i := range pts {
-		if asc {
-			pts[i].cell = i // cell i lies between edges i and i+1
-		} else {
-			pts[i].cell = i - 1 // reversed below: edge i begins cell i-1
-		}
-	}
-	if !asc {
-		for i, j := 0, n; i < j; i, j = i+1, j-1 {
-			pts[i], pts[j] = pts[j], pts[i]
-		}
-	}
 	out := make([]int, npx)
 	step := (hi - lo) / vg.Length(npx)
 	for p := range npx {
 		x := lo + (vg.Length(p)+0.5)*step
-		k := sort.Search(len(pts), func(i int) bool { return pts[i].at > x }) - 1
+		k := sort.Search(len(at), func(i int) bool { return at[i] > x }) - 1 // cell k: edges k, k+1
 		if k < 0 || k >= n {
-			out[p] = -1
-			continue
+			k = -1
 		}
-		out[p] = pts[k].cell
+		out[p] = k
 	}
 	return out
 }

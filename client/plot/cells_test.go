@@ -173,16 +173,36 @@ func TestHeatMapColourBar(t *testing.T) {
 	}
 }
 
-// The same map given with its axes descending draws the same image.
-func TestHeatMapAxisOrder(t *testing.T) {
-	xs := []float64{0, 1, 4, 9}
-	ys := []float64{0.05, 2, 3}
-	z := make([]float64, len(xs)*len(ys))
+// orderMap is a 4 × 3 map on uneven axes whose every cell differs.
+func orderMap() (xs, ys, z []float64) {
+	xs = []float64{0, 1, 4, 9}
+	ys = []float64{0.05, 2, 3}
+	z = make([]float64, len(xs)*len(ys))
 	for i := range xs {
 		for j := range ys {
 			z[i*len(ys)+j] = float64(3*i*i + j)
 		}
 	}
+	return xs, ys, z
+}
+
+// pixelsDiffer counts the pixels in which two images of one size differ.
+func pixelsDiffer(a, b image.Image) int {
+	diff := 0
+	bnd := a.Bounds()
+	for y := bnd.Min.Y; y < bnd.Max.Y; y++ {
+		for x := bnd.Min.X; x < bnd.Max.X; x++ {
+			if nrgba(a, x, y) != nrgba(b, x, y) {
+				diff++
+			}
+		}
+	}
+	return diff
+}
+
+// The same map given with its axes descending draws the same image.
+func TestHeatMapAxisOrder(t *testing.T) {
+	xs, ys, z := orderMap()
 	rx := []float64{9, 4, 1, 0}
 	ry := []float64{3, 2, 0.05}
 	rz := make([]float64, len(z))
@@ -192,16 +212,7 @@ func TestHeatMapAxisOrder(t *testing.T) {
 		}
 	}
 	a, b := render(t, "order", xs, ys, z), render(t, "order", rx, ry, rz)
-	diff := 0
-	bnd := a.Bounds()
-	for y := bnd.Min.Y; y < bnd.Max.Y; y++ {
-		for x := bnd.Min.X; x < bnd.Max.X; x++ {
-			if nrgba(a, x, y) != nrgba(b, x, y) {
-				diff++
-			}
-		}
-	}
-	if diff > 0 {
+	if diff := pixelsDiffer(a, b); diff > 0 {
 		t.Errorf("%d pixels differ between ascending and descending axes", diff)
 	}
 }
@@ -209,14 +220,7 @@ func TestHeatMapAxisOrder(t *testing.T) {
 // Axis values given out of order (a list such as 4, 0, 9, 1) draw each
 // cell between its neighbours in value: the same image as the sorted map.
 func TestHeatMapUnsortedAxis(t *testing.T) {
-	xs := []float64{0, 1, 4, 9}
-	ys := []float64{0.05, 2, 3}
-	z := make([]float64, len(xs)*len(ys))
-	for i := range xs {
-		for j := range ys {
-			z[i*len(ys)+j] = float64(3*i*i + j)
-		}
-	}
+	xs, ys, z := orderMap()
 	perm := []int{2, 0, 3, 1} // xs 4, 0, 9, 1
 	ux := make([]float64, len(xs))
 	uz := make([]float64, len(z))
@@ -225,16 +229,7 @@ func TestHeatMapUnsortedAxis(t *testing.T) {
 		copy(uz[k*len(ys):(k+1)*len(ys)], z[i*len(ys):(i+1)*len(ys)])
 	}
 	a, b := render(t, "unsorted_axis", xs, ys, z), render(t, "unsorted_axis", ux, ys, uz)
-	diff := 0
-	bnd := a.Bounds()
-	for y := bnd.Min.Y; y < bnd.Max.Y; y++ {
-		for x := bnd.Min.X; x < bnd.Max.X; x++ {
-			if nrgba(a, x, y) != nrgba(b, x, y) {
-				diff++
-			}
-		}
-	}
-	if diff > 0 {
+	if diff := pixelsDiffer(a, b); diff > 0 {
 		t.Errorf("%d pixels differ between sorted and unsorted x values", diff)
 	}
 }
